@@ -1,0 +1,264 @@
+"""Command line: ``fissure audit DATA --label COL ...`` (also ``python -m audit audit ...``).
+
+This module only parses arguments, calls the engine and writes its result; every number
+comes from ``audit.run``. Bad input is one line on stderr and exit code 2; with the gate
+option, exit code 1 means the gate stopped the release.
+"""
+from __future__ import annotations
+
+import argparse
+import os
+import shlex
+import sys
+from typing import Any, Sequence
+
+from . import __version__
+from .config import AuditConfig, load_toml
+from .correct import CORRECTIONS
+from .errors import AuditInputError
+from .intervals import INTERVALS
+from .measure import METRICS
+
+EXIT_OK, EXIT_GATE, EXIT_INPUT = 0, 1, 2
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message: str):  # one line, exit 2, like every other input error
+        self.exit(EXIT_INPUT, f"fissure: {message}\n")
+
+
+def _csv_list(text: str) -> list[str]:
+    items = [t.strip() for t in text.split(",")]
+    if any(not t for t in items):
+        raise argparse.ArgumentTypeError(f"'{text}' has an empty name; separate names with commas")
+    return items
+
+
+def _edges(text: str) -> tuple[str, list[float]]:
+    col, sep, rest = text.rpartition("=")
+    if not sep or not col:
+        raise argparse.ArgumentTypeError(f"'{text}' should look like COLUMN=e0,e1,e2")
+    try:
+        return col, [float(x) for x in rest.split(",")]
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"bin edges in '{text}' must be numbers") from None
+
+
+def _pair(text: str) -> tuple[str, str]:
+    col, sep, val = text.partition("=")
+    if not sep or not col:
+        raise argparse.ArgumentTypeError(f"'{text}' should look like ATTRIBUTE=GROUP")
+    return col, val
+
+
+def build_parser() -> argparse.ArgumentParser:
+    p = _Parser(prog="fissure", description="Audit a binary classifier slice by slice.")
+    p.add_argument("--version", action="version", version=f"fissure {__version__}")
+    sub = p.add_subparsers(dest="command", required=True, parser_class=_Parser)
+    a = sub.add_parser("audit", help="audit a predictions table (CSV or Parquet)",
+                       description="Score every attribute value and every pair of values, test each slice "
+                                   "against the rest, correct for the number of tests and rank worst first.")
+    a.add_argument("data", help="predictions table: .csv or .parquet")
+    g = a.add_argument_group("columns")
+    g.add_argument("--label", help="true label column")
+    g.add_argument("--pred", help="predicted label column")
+    g.add_argument("--score", help="predicted probability of the positive class")
+    g.add_argument("--positive", help="the positive class (inferred for 0/1, false/true, no/yes)")
+    g.add_argument("--threshold", type=float, help="with --score only: predict positive when score >= T (0.5)")
+    g.add_argument("--attributes", type=_csv_list, help="comma-separated attribute columns (default: all others)")
+    g.add_argument("--bins", type=int, help="quantile bins per numeric attribute (5)")
+    g.add_argument("--bin-edges", type=_edges, action="append", metavar="COL=E0,E1,...",
+                   help="explicit bin edges for one numeric column (repeatable)")
+    s = a.add_argument_group("statistics")
+    s.add_argument("--metric", choices=list(METRICS), help="audited metric (error_rate)")
+    s.add_argument("--min-support", type=int, help="fewest rows for a slice to be tested (30)")
+    s.add_argument("--min-metric-support", type=int,
+                   help="fewest rows in the metric's denominator, e.g. actual positives for recall (10)")
+    s.add_argument("--alpha", type=float, help="flag when the adjusted p-value <= ALPHA (0.05)")
+    s.add_argument("--correction", choices=list(CORRECTIONS),
+                   help="multiple-testing correction: " + "; ".join(f"{k}: {v.title}" for k, v in CORRECTIONS.items()))
+    s.add_argument("--interval", choices=list(INTERVALS), help="interval for rates (wilson)")
+    s.add_argument("--level", type=float, help="confidence level of intervals (0.95)")
+    s.add_argument("--max-order", type=int, choices=[1, 2], help="1: single attributes; 2: pairs too (2)")
+    s.add_argument("--auc-max-order", type=int, choices=[-1, 0, 1, 2],
+                   help="highest slice order with ROC AUC (1; -1 for none)")
+    f = a.add_argument_group("fairness")
+    f.add_argument("--protected", type=_csv_list, help="comma-separated protected attributes")
+    f.add_argument("--favorable", help="the predicted class that is favourable to the person (default: positive)")
+    f.add_argument("--reference", type=_pair, action="append", metavar="ATTR=GROUP",
+                   help="reference group for one protected attribute (default: highest selection rate)")
+    f.add_argument("--min-group-share", type=float, help="groups below this share are left out of ratios (0.02)")
+    r = a.add_argument_group("report")
+    r.add_argument("--model-name", help="model name for the report")
+    r.add_argument("--model-version", help="model version for the report")
+    r.add_argument("--intended-use", help="intended use of the model, for the report")
+    r.add_argument("--no-report", action="store_true", help="write slices.csv and summary.json only")
+    r.add_argument("--pdf", action="store_true", help="also write report.pdf (needs Debian's chromium)")
+    o = a.add_argument_group("output")
+    o.add_argument("--config", help="TOML settings file (command-line options override it)")
+    o.add_argument("--out", default="fissure-out", help="output folder (fissure-out)")
+    o.add_argument("--top", type=int, default=10, help="ranked slices shown in the terminal (10)")
+    o.add_argument("--quiet", action="store_true", help="no terminal summary")
+    o.add_argument("--block-on-flag", action="store_true",
+                   help="release gate: exit 1 when any slice is flagged")
+    o.add_argument("--block-gap", type=float, metavar="GAP",
+                   help="release gate: exit 1 when a flagged slice is worse than the rest by more than GAP "
+                        "(in the metric's units)")
+    return p
+
+
+_OPTION_TO_SETTING = {
+    "label": "label", "pred": "pred", "score": "score", "positive": "positive", "threshold": "threshold",
+    "attributes": "attributes", "bins": "bins", "metric": "metric", "min_support": "min_support",
+    "min_metric_support": "min_metric_support", "alpha": "alpha", "correction": "correction",
+    "interval": "interval", "level": "level", "max_order": "max_order", "auc_max_order": "auc_max_order",
+    "protected": "protected", "favorable": "favorable", "min_group_share": "min_group_share",
+    "model_name": "model_name", "model_version": "model_version", "intended_use": "intended_use",
+}
+
+
+def settings_from(args: argparse.Namespace) -> dict[str, Any]:
+    settings: dict[str, Any] = load_toml(args.config) if args.config else {}
+    for opt, key in _OPTION_TO_SETTING.items():
+        v = getattr(args, opt)
+        if v is not None:
+            settings[key] = v
+    if args.bin_edges:
+        settings["bin_edges"] = {**settings.get("bin_edges", {}), **dict(args.bin_edges)}
+    if args.reference:
+        settings["reference"] = {**settings.get("reference", {}), **dict(args.reference)}
+    if not settings.get("label"):
+        raise AuditInputError("give the label column with --label COL (or label = ... in --config)")
+    return settings
+
+
+class _Bar:
+    """Progress on stderr through tqdm; silent when stderr is not a terminal."""
+
+    def __init__(self, enabled: bool):
+        self.bar = None
+        if enabled and sys.stderr.isatty():
+            from tqdm import tqdm
+
+            self.bar = tqdm(total=100, desc="audit", unit="%", leave=False, file=sys.stderr,
+                            bar_format="{desc}: {percentage:3.0f}%|{bar}| {postfix}")
+
+    def __call__(self, stage: str, frac: float) -> None:
+        if self.bar is not None:
+            self.bar.set_postfix_str(stage)
+            self.bar.update(int(frac * 100) - self.bar.n)
+
+    def close(self) -> None:
+        if self.bar is not None:
+            self.bar.close()
+
+
+def _fmt(x, digits=4) -> str:
+    try:
+        xf = float(x)
+    except (TypeError, ValueError):
+        return str(x)
+    return "—" if xf != xf else f"{xf:.{digits}f}"
+
+
+def terminal_summary(result, top: int) -> str:
+    m = result.metric
+    st = result.status_counts()
+    o = result.overall
+    lines = [
+        f"fissure {result.version}: {result.n_rows} rows, positive class '{result.classes[1]}'"
+        + (" (inferred)" if result.positive_inferred else ""),
+        f"overall {m.name} {_fmt(o.get(m.name))}  accuracy {_fmt(o['accuracy'])}  recall {_fmt(o['recall'])}  "
+        f"precision {_fmt(o['precision'])}  F1 {_fmt(o['f1'])}"
+        + (f"  log loss {_fmt(o['log_loss'])}" if o.get("log_loss") is not None else ""),
+        f"slices: {st.get('tested', 0)} tested (m = {result.family_size}), {st.get('below_support', 0)} below support, "
+        f"{st['flagged']} flagged at {result.config.correction} {result.config.alpha:g}",
+    ]
+    if result.skipped:
+        lines.append("skipped: " + "; ".join(f"{k} ({v})" for k, v in result.skipped.items()))
+    ranked = result.ranked().head(top)
+    if len(ranked):
+        lines.append(f"worst slices by {m.name} (slice − rest, {int(result.config.level * 100)}% interval):")
+        w = min(60, max(len(s) for s in ranked["slice"]))
+        for _, r in ranked.iterrows():
+            flag = "FLAG" if r["flagged"] else "    "
+            name = r["slice"] if len(r["slice"]) <= w else r["slice"][: w - 1] + "…"
+            lines.append(f"  {int(r['rank']):>3} {flag} {name:<{w}} n={int(r['n']):<7} {_fmt(r['metric_value'])} "
+                         f"diff {_fmt(r['diff'], 3):>7} [{_fmt(r['diff_low'], 3)}, {_fmt(r['diff_high'], 3)}] "
+                         f"q={r['q_value']:.2g}")
+    lines.append("Flags are statistical signals to investigate, not findings of discrimination or legal conclusions.")
+    return "\n".join(lines)
+
+
+def gate(result, *, on_flag: bool, gap: float | None) -> str | None:
+    """Reason the release gate stops, or ``None``."""
+    flagged = result.flagged()
+    if on_flag and len(flagged):
+        return f"{len(flagged)} slice(s) flagged; worst: {flagged.iloc[0]['slice']}"
+    if gap is not None and len(flagged):
+        size = flagged["diff"].abs()
+        over = flagged[size > gap]
+        if len(over):
+            r = over.iloc[0]
+            return f"flagged slice '{r['slice']}' differs from the rest by {abs(r['diff']):.4g} > {gap:g}"
+    return None
+
+
+def audit_command(args: argparse.Namespace, argv: Sequence[str]) -> int:
+    from .engine import run
+    from .export import slices_csv, summary_json, write_files
+    from .intake import read_table
+
+    settings = settings_from(args)
+    bar = _Bar(not args.quiet)
+    try:
+        df, source = read_table(args.data)
+        result = run(df, source=source, progress=bar, **settings)
+    finally:
+        bar.close()
+    files = {"slices.csv": slices_csv(result), "summary.json": summary_json(result)}
+    if result.fairness is not None:
+        files["fairness.csv"] = result.fairness.to_csv()
+    command = "fissure " + " ".join(shlex.quote(a) for a in argv)
+    pdf_note = None
+    if not args.no_report:
+        from .report import build_html, html_to_pdf
+
+        html = build_html(result, command=command)
+        files["report.html"] = html.encode("utf-8")
+        files["fissure.toml"] = result.config.to_toml().encode("utf-8")
+        if args.pdf:
+            pdf, pdf_note = html_to_pdf(html)
+            if pdf is not None:
+                files["report.pdf"] = pdf
+    written = write_files(args.out, files)
+    if not args.quiet:
+        print(terminal_summary(result, args.top))
+        print("wrote " + ", ".join(written))
+    if pdf_note:
+        print(f"fissure: {pdf_note}", file=sys.stderr)
+    reason = gate(result, on_flag=args.block_on_flag, gap=args.block_gap)
+    if reason:
+        print(f"fissure: release gate: {reason}", file=sys.stderr)
+        return EXIT_GATE
+    return EXIT_OK
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    argv = list(sys.argv[1:] if argv is None else argv)
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        if args.command == "audit":
+            return audit_command(args, argv)
+    except AuditInputError as exc:
+        print(f"fissure: {exc}", file=sys.stderr)
+        return EXIT_INPUT
+    except KeyboardInterrupt:
+        print("fissure: interrupted; nothing written", file=sys.stderr)
+        return 130
+    return EXIT_INPUT
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

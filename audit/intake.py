@@ -1,0 +1,277 @@
+"""Step 1 of the pipeline: read a predictions table and validate the outcome columns.
+
+Everything a user can get wrong about the label, prediction and probability columns is
+checked here, once, and reported as an :class:`AuditInputError` with one line naming the
+column, value or row. Later steps may assume clean input.
+"""
+from __future__ import annotations
+
+import csv
+import hashlib
+import io
+import os
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from .errors import AuditInputError
+
+# Label pairs whose positive member is obvious; matched on lower-cased text.
+_KNOWN_PAIRS = [
+    ("0", "1"), ("false", "true"), ("no", "yes"), ("n", "y"), ("f", "t"),
+    ("negative", "positive"), ("neg", "pos"),
+]
+
+
+@dataclass(frozen=True)
+class SourceInfo:
+    """Where the table came from: file name (or ``None`` for a DataFrame), SHA-256 of its bytes."""
+
+    name: str | None
+    sha256: str | None
+    n_bytes: int | None
+
+
+@dataclass(frozen=True)
+class Outcomes:
+    """Validated outcome columns, encoded for counting.
+
+    ``y`` and ``yhat`` hold class indices (0 = negative, 1 = positive) as int8; ``score``
+    is the probability of the positive class (float64) or ``None``. ``classes`` names the
+    classes in index order, so a multi-class audit can extend the same layout.
+    """
+
+    y: np.ndarray
+    yhat: np.ndarray
+    score: np.ndarray | None
+    classes: tuple[str, str]
+    positive: str
+    positive_inferred: bool
+    prediction_source: str  # "column" or "threshold"
+
+
+def _row(pos: int) -> str:
+    return f"data row {pos + 1}"
+
+
+def canonical(value: Any) -> str:
+    """Text form used to compare class values across columns and with ``--positive``.
+
+    Integral floats and booleans map to integer text, so ``1``, ``1.0`` and ``True`` agree.
+    """
+    if isinstance(value, (bool, np.bool_)):
+        return str(int(value))
+    if isinstance(value, (float, np.floating)) and float(value).is_integer():
+        return str(int(value))
+    if isinstance(value, (int, np.integer)):
+        return str(int(value))
+    return str(value)
+
+
+def _canonical_column(s: pd.Series) -> np.ndarray:
+    if pd.api.types.is_bool_dtype(s):
+        return np.where(s.to_numpy(dtype=bool), "1", "0").astype(object)
+    if pd.api.types.is_numeric_dtype(s):
+        v = s.to_numpy(dtype=float)
+        out = np.empty(len(v), dtype=object)
+        integral = np.isfinite(v) & (v == np.round(v))
+        out[integral] = [str(int(x)) for x in v[integral]] if integral.any() else []
+        rest = ~integral
+        out[rest] = [repr(float(x)) for x in v[rest]] if rest.any() else []
+        return out
+    return np.asarray([str(x) for x in s.to_numpy(dtype=object)], dtype=object)
+
+
+def sha256_of(path: str) -> tuple[str, int]:
+    h = hashlib.sha256()
+    size = 0
+    with open(path, "rb") as fh:
+        for block in iter(lambda: fh.read(1 << 20), b""):
+            h.update(block)
+            size += len(block)
+    return h.hexdigest(), size
+
+
+def read_table(source: str | os.PathLike | bytes, *, name: str | None = None) -> tuple[pd.DataFrame, SourceInfo]:
+    """Read a CSV or Parquet file (a path, or raw bytes with a ``name``) into a DataFrame.
+
+    Raises :class:`AuditInputError` for a missing, empty or header-only file, an unknown
+    extension and duplicate column names.
+    """
+    if isinstance(source, (bytes, bytearray)):
+        data = bytes(source)
+        label = name or "upload"
+        digest, size = hashlib.sha256(data).hexdigest(), len(data)
+    else:
+        path = os.fspath(source)
+        label = os.path.basename(path)
+        if not os.path.exists(path):
+            raise AuditInputError(f"input file '{path}' does not exist")
+        if os.path.isdir(path):
+            raise AuditInputError(f"input '{path}' is a folder; expected a CSV or Parquet file")
+        with open(path, "rb") as fh:
+            data = fh.read()
+        digest, size = hashlib.sha256(data).hexdigest(), len(data)
+    if size == 0 or not data.strip():
+        raise AuditInputError(f"input file '{label}' is empty")
+    ext = os.path.splitext(label)[1].lower()
+    if ext in (".parquet", ".pq"):
+        try:
+            df = pd.read_parquet(io.BytesIO(data))
+        except Exception as exc:  # pyarrow raises many types; ours is one line
+            raise AuditInputError(f"input file '{label}' is not a readable Parquet file ({type(exc).__name__})") from None
+    elif ext in (".csv", ".txt", ".tsv", ""):
+        sep = "\t" if ext == ".tsv" else ","
+        text = data.decode("utf-8-sig", errors="replace")
+        header = next(csv.reader(io.StringIO(text), delimiter=sep), [])
+        seen: set[str] = set()
+        for col in header:
+            if col in seen:
+                raise AuditInputError(f"input file '{label}' has the column name '{col}' more than once")
+            seen.add(col)
+        try:
+            df = pd.read_csv(io.StringIO(text), sep=sep, low_memory=False)
+        except pd.errors.EmptyDataError:
+            raise AuditInputError(f"input file '{label}' is empty") from None
+        except pd.errors.ParserError as exc:
+            raise AuditInputError(f"input file '{label}' is not valid CSV: {str(exc).splitlines()[0]}") from None
+    elif ext in (".xlsx", ".xls"):
+        try:
+            df = pd.read_excel(io.BytesIO(data))
+        except ImportError:
+            raise AuditInputError("reading Excel files needs the 'openpyxl' package; save the sheet as CSV instead") from None
+        except Exception as exc:
+            raise AuditInputError(f"input file '{label}' is not a readable Excel file ({type(exc).__name__})") from None
+    else:
+        raise AuditInputError(f"input file '{label}' has extension '{ext}'; expected .csv or .parquet")
+    if len(df) == 0:
+        raise AuditInputError(f"input file '{label}' has a header but no data rows")
+    return df, SourceInfo(name=label, sha256=digest, n_bytes=size)
+
+
+def check_columns(df: pd.DataFrame) -> None:
+    dup = df.columns[df.columns.duplicated()]
+    if len(dup):
+        raise AuditInputError(f"the table has the column name '{dup[0]}' more than once")
+    if len(df) == 0:
+        raise AuditInputError("the table has no rows")
+
+
+def _need(df: pd.DataFrame, col: str | None, role: str) -> None:
+    if col is not None and col not in df.columns:
+        shown = ", ".join(map(str, list(df.columns)[:8]))
+        more = ", ..." if len(df.columns) > 8 else ""
+        raise AuditInputError(f"{role} column '{col}' is not in the table (columns: {shown}{more})")
+
+
+def _first_bad(mask: np.ndarray) -> int:
+    return int(np.flatnonzero(mask)[0])
+
+
+def _infer_positive(classes: list[str], column: str) -> str:
+    low = sorted(c.lower() for c in classes)
+    for neg, pos in _KNOWN_PAIRS:
+        if low == sorted([neg, pos]):
+            return next(c for c in classes if c.lower() == pos)
+    raise AuditInputError(
+        f"label column '{column}' has classes {classes[0]!r} and {classes[1]!r}; "
+        "cannot tell which is positive — pass positive=... (CLI: --positive VALUE)"
+    )
+
+
+def read_outcomes(
+    df: pd.DataFrame,
+    *,
+    label: str,
+    pred: str | None = None,
+    score: str | None = None,
+    positive: Any = None,
+    threshold: float = 0.5,
+) -> Outcomes:
+    """Validate the label, prediction and probability columns and encode them.
+
+    If only ``score`` is given, the prediction is ``score >= threshold``. If both are given,
+    counts use ``pred`` and the losses use ``score``.
+    """
+    check_columns(df)
+    _need(df, label, "label")
+    _need(df, pred, "prediction")
+    _need(df, score, "probability")
+    if pred is None and score is None:
+        raise AuditInputError("give a prediction column (pred=..., --pred) or a probability column (score=..., --score)")
+    for role, col in (("prediction", pred), ("probability", score)):
+        if col is not None and col == label:
+            raise AuditInputError(f"{role} column '{col}' is the label column; pick a different column")
+    if not (isinstance(threshold, (int, float)) and 0.0 <= float(threshold) <= 1.0):
+        raise AuditInputError(f"threshold must be a number in [0, 1]; received {threshold!r}")
+
+    ys = df[label]
+    missing = ys.isna().to_numpy()
+    if missing.any():
+        raise AuditInputError(f"label column '{label}' has a missing value at {_row(_first_bad(missing))}")
+    ytext = _canonical_column(ys)
+    classes = sorted(set(ytext.tolist()))
+    if len(classes) != 2:
+        shown = ", ".join(classes[:5]) + (", ..." if len(classes) > 5 else "")
+        raise AuditInputError(
+            f"label column '{label}' has {len(classes)} distinct value{'s' if len(classes) != 1 else ''} ({shown}); "
+            "expected two (binary audit)"
+        )
+    if positive is None:
+        pos = _infer_positive(classes, label)
+        inferred = True
+    else:
+        pos = canonical(positive)
+        inferred = False
+        if pos not in classes:
+            raise AuditInputError(
+                f"positive class {positive!r} does not occur in label column '{label}' (classes: {classes[0]}, {classes[1]})"
+            )
+    neg = classes[0] if classes[1] == pos else classes[1]
+    y = (ytext == pos).astype(np.int8)
+
+    p = None
+    if score is not None:
+        raw = df[score]
+        if not pd.api.types.is_numeric_dtype(raw) or pd.api.types.is_bool_dtype(raw):
+            conv = pd.to_numeric(raw, errors="coerce")
+            bad = conv.isna().to_numpy() & raw.notna().to_numpy()
+            if bad.any():
+                i = _first_bad(bad)
+                raise AuditInputError(
+                    f"probability column '{score}' has a non-numeric value {str(raw.iloc[i])!r} at {_row(i)}"
+                )
+            raw = conv
+        p = raw.to_numpy(dtype=float)
+        nan = np.isnan(p)
+        if nan.any():
+            raise AuditInputError(f"probability column '{score}' has a missing value at {_row(_first_bad(nan))}")
+        out = (p < 0) | (p > 1)
+        if out.any():
+            i = _first_bad(out)
+            raise AuditInputError(
+                f"probability column '{score}' has value {p[i]:g} at {_row(i)}; probabilities must lie in [0, 1]"
+            )
+
+    if pred is not None:
+        ps = df[pred]
+        pmiss = ps.isna().to_numpy()
+        if pmiss.any():
+            raise AuditInputError(f"prediction column '{pred}' has a missing value at {_row(_first_bad(pmiss))}")
+        ptext = _canonical_column(ps)
+        unknown = ~np.isin(ptext, np.array(classes, dtype=object))
+        if unknown.any():
+            i = _first_bad(unknown)
+            raise AuditInputError(
+                f"prediction column '{pred}' has value {ptext[i]!r} at {_row(i)}, which is not a class of "
+                f"label column '{label}' ({classes[0]}, {classes[1]})"
+            )
+        yhat = (ptext == pos).astype(np.int8)
+        source = "column"
+    else:
+        yhat = (p >= float(threshold)).astype(np.int8)
+        source = "threshold"
+    return Outcomes(y=y, yhat=yhat, score=p, classes=(neg, pos), positive=pos,
+                    positive_inferred=inferred, prediction_source=source)

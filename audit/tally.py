@@ -1,0 +1,205 @@
+"""Step 3: per-slice sufficient statistics, as sums that add across chunks of rows.
+
+For every slice family (the whole table, each attribute, each pair of attributes) this
+module counts the confusion cells of every slice and sums the per-row losses. Everything
+later (metrics, intervals, tests) is derived from these sums, so a table read in chunks,
+or tallied on several workers, gives the same audit by adding :class:`Tally` objects.
+
+Layout
+------
+A slice's position inside its family is the mixed-radix number of its attribute codes
+(first attribute most significant). ``counts[s, y * K + yhat]`` holds the number of rows
+of slice ``s`` with true class ``y`` and predicted class ``yhat`` (``K = 2`` here; the
+layout already fits ``K`` classes). ``sums[s]`` holds Σ log loss, Σ log loss², Σ Brier,
+Σ Brier² over the slice's rows (zeros when no probability is given).
+
+Two kernels produce identical counts: a compiled one (numba, one pass over the rows
+for all families) and a plain numpy one (``np.bincount`` per family) kept as the
+reference and fallback. Float sums agree to rounding.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+try:  # the compiled kernel is optional at import time; numpy is the fallback
+    import numba
+    from numba import njit, prange
+except ImportError:  # pragma: no cover - numba is a declared dependency
+    numba = None
+
+#: Probabilities are clipped to [EPS, 1 - EPS] before taking logs.
+EPS = 1e-15
+N_SUMS = 4  # Σ ll, Σ ll², Σ brier, Σ brier²
+
+
+def row_losses(y: np.ndarray, score: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Per-row log loss (natural log, clipped at ``EPS``) and Brier score."""
+    p = np.clip(score, EPS, 1.0 - EPS)
+    yb = y.astype(bool)
+    ll = -np.log(np.where(yb, p, 1.0 - p))
+    br = (score - y) ** 2
+    return ll, br
+
+
+@dataclass
+class Tally:
+    """Sums for a list of slice families; ``tally_a + tally_b`` tallies the union of rows."""
+
+    families: tuple[tuple[int, ...], ...]
+    shapes: tuple[tuple[int, ...], ...]
+    offsets: np.ndarray  # start row of each family in counts/sums (len = families + 1)
+    counts: np.ndarray   # (slices, K*K) int64
+    sums: np.ndarray     # (slices, N_SUMS) float64
+    n_classes: int = 2
+
+    def __add__(self, other: "Tally") -> "Tally":
+        if self.families != other.families or self.shapes != other.shapes:
+            raise ValueError("tallies cover different slice families; encode every chunk with the same levels")
+        return Tally(self.families, self.shapes, self.offsets, self.counts + other.counts,
+                     self.sums + other.sums, self.n_classes)
+
+    def family(self, k: int) -> tuple[np.ndarray, np.ndarray]:
+        a, b = self.offsets[k], self.offsets[k + 1]
+        return self.counts[a:b], self.sums[a:b]
+
+
+def plan_families(n_attributes: int, max_order: int) -> list[tuple[int, ...]]:
+    fams: list[tuple[int, ...]] = [()]
+    if max_order >= 1:
+        fams += [(i,) for i in range(n_attributes)]
+    if max_order >= 2:
+        fams += [(i, j) for i in range(n_attributes) for j in range(i + 1, n_attributes)]
+    return fams
+
+
+def _layout(families, cards):
+    shapes = tuple(tuple(cards[i] for i in f) for f in families)
+    sizes = [int(np.prod(s)) if s else 1 for s in shapes]
+    offsets = np.concatenate([[0], np.cumsum(sizes)]).astype(np.int64)
+    return shapes, offsets
+
+
+def code_matrix(codes: list[np.ndarray], cards: list[int]) -> np.ndarray:
+    """Row-major (rows × attributes) matrix of codes in the narrowest integer type."""
+    top = max(cards) if cards else 1
+    dt = np.uint8 if top <= 255 else (np.int16 if top <= 32767 else np.int32)
+    if not codes:
+        return np.zeros((0, 0), dtype=dt)
+    return np.ascontiguousarray(np.stack([c.astype(dt, copy=False) for c in codes], axis=1))
+
+
+def tally_numpy(codes, cards, cell, ll=None, br=None, *, families, n_classes=2) -> Tally:
+    """Reference kernel: one ``np.bincount`` per family and quantity."""
+    kk = n_classes * n_classes
+    shapes, offsets = _layout(families, cards)
+    total = int(offsets[-1])
+    counts = np.zeros((total, kk), dtype=np.int64)
+    sums = np.zeros((total, N_SUMS), dtype=np.float64)
+    n = len(cell)
+    weights = [] if ll is None else [ll, ll * ll, br, br * br]
+    for k, fam in enumerate(families):
+        size = int(offsets[k + 1] - offsets[k])
+        idx = np.zeros(n, dtype=np.int64)
+        for a in fam:
+            idx = idx * cards[a] + codes[a]
+        counts[offsets[k]:offsets[k + 1]] = np.bincount(idx * kk + cell, minlength=size * kk).reshape(size, kk)
+        for w, wt in enumerate(weights):
+            sums[offsets[k]:offsets[k + 1], w] = np.bincount(idx, weights=wt, minlength=size)
+    return Tally(tuple(families), shapes, offsets, counts, sums, n_classes)
+
+
+if numba is not None:
+
+    @njit(parallel=True, cache=True, nogil=True)
+    def _kernel(ct, cell, ll, br, fa, fb, cb, off, total, kk, nth):  # pragma: no cover - compiled
+        # One record of kk counts and 4 sums per slice, kept together so an update touches
+        # one cache line; counts are held as float64, exact below 2**53.
+        n = ct.shape[0]
+        nf = fa.shape[0]
+        width = kk + 4
+        acc = np.zeros((nth, total, width), dtype=np.float64)
+        chunk = (n + nth - 1) // nth
+        for t in prange(nth):
+            lo = t * chunk
+            hi = min(n, lo + chunk)
+            o = acc[t]
+            for r in range(lo, hi):
+                row = ct[r]
+                ce = cell[r]
+                a = ll[r]
+                b = br[r]
+                a2 = a * a
+                b2 = b * b
+                for k in range(nf):
+                    idx = off[k] + np.int64(row[fa[k]]) * cb[k] + row[fb[k]]
+                    o[idx, ce] += 1.0
+                    o[idx, kk] += a
+                    o[idx, kk + 1] += a2
+                    o[idx, kk + 2] += b
+                    o[idx, kk + 3] += b2
+        return acc.sum(axis=0)
+
+
+def tally(codes, cards, cell, ll=None, br=None, *, families, n_classes=2, kernel="auto") -> Tally:
+    """Tally every family in ``families`` (tuples of at most two attribute indices).
+
+    ``kernel`` is ``"compiled"``, ``"numpy"`` or ``"auto"`` (compiled when numba imports).
+    """
+    if kernel == "numpy" or numba is None or any(len(f) > 2 for f in families):
+        return tally_numpy(codes, cards, cell, ll, br, families=families, n_classes=n_classes)
+    families = tuple(families)
+    pairs = tuple(f for f in families if len(f) == 2)
+    if pairs and all(_derivable(f, pairs) for f in families if len(f) < 2):
+        # Count only the pairs; every single and the whole table are their margins.
+        return _from_pairs(_compiled(codes, cards, cell, ll, br, pairs, n_classes), families, cards)
+    return _compiled(codes, cards, cell, ll, br, families, n_classes)
+
+
+def _derivable(fam, pairs) -> bool:
+    return len(fam) == 0 or any(fam[0] in p for p in pairs)
+
+
+def _from_pairs(pt: Tally, families, cards) -> Tally:
+    kk = pt.n_classes ** 2
+    shapes, offsets = _layout(families, cards)
+    counts = np.zeros((int(offsets[-1]), kk), dtype=np.int64)
+    sums = np.zeros((int(offsets[-1]), N_SUMS), dtype=np.float64)
+    where = {f: k for k, f in enumerate(pt.families)}
+    for k, fam in enumerate(families):
+        lo, hi = offsets[k], offsets[k + 1]
+        if len(fam) == 2:
+            c, s = pt.family(where[fam])
+        else:
+            p = next(p for p in pt.families if len(fam) == 0 or fam[0] in p)
+            c, s = pt.family(where[p])
+            c = c.reshape(cards[p[0]], cards[p[1]], kk)
+            s = s.reshape(cards[p[0]], cards[p[1]], N_SUMS)
+            keep = () if len(fam) == 0 else (p.index(fam[0]),)
+            axes = tuple(ax for ax in (0, 1) if ax not in keep)
+            c = c.sum(axis=axes).reshape(-1, kk)
+            s = s.sum(axis=axes).reshape(-1, N_SUMS)
+        counts[lo:hi] = c
+        sums[lo:hi] = s
+    return Tally(tuple(families), shapes, offsets, counts, sums, pt.n_classes)
+
+
+def _compiled(codes, cards, cell, ll, br, families, n_classes) -> Tally:
+    kk = n_classes * n_classes
+    shapes, offsets = _layout(families, cards)
+    n_attr = len(codes)
+    # A constant all-zero column at index n_attr turns singles and the whole table into
+    # pairs (attribute, constant), so the kernel has a single branch-free update.
+    fa = np.array([f[0] if len(f) > 0 else n_attr for f in families], dtype=np.int64)
+    fb = np.array([f[1] if len(f) > 1 else n_attr for f in families], dtype=np.int64)
+    cb = np.array([cards[f[1]] if len(f) > 1 else 1 for f in families], dtype=np.int64)
+    ct = code_matrix(list(codes) + [np.zeros(len(cell), dtype=np.int32)], list(cards) + [1])
+    if ll is None:
+        ll = br = np.zeros(len(cell))
+    nth = max(1, min(numba.get_num_threads(), 1 + len(cell) // 50_000))
+    acc = _kernel(ct, cell.astype(np.int8, copy=False), ll, br, fa, fb, cb, offsets[:-1].copy(),
+                  int(offsets[-1]), kk, nth)
+    c = acc[:, :kk].astype(np.int64)
+    s = np.ascontiguousarray(acc[:, kk:])
+    return Tally(tuple(families), shapes, offsets, c, s, n_classes)
