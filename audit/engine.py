@@ -264,8 +264,9 @@ def run(
     >>> df = pd.DataFrame({"y": [0, 1] * 50, "p": [0.2, 0.7] * 45 + [0.9, 0.1] * 5,
     ...                    "region": ["north"] * 60 + ["south"] * 40})
     >>> res = run(df, label="y", score="p")
-    >>> res.slice("region=south")[["n", "errors", "error_rate"]].tolist()
-    [40, 10, 0.25]
+    >>> s = res.slice("region=south")
+    >>> int(s["n"]), int(s["errors"]), float(s["error_rate"])
+    (40, 10, 0.25)
     """
     t0 = time.perf_counter()
     timings: dict[str, float] = {}

