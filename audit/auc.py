@@ -13,47 +13,49 @@ import numpy as np
 from .tally import _layout, code_matrix
 
 try:
-    from numba import njit
+    from numba import njit, prange
 except ImportError:  # pragma: no cover
     njit = None
 
 
 if njit is not None:
 
-    @njit(cache=True, nogil=True)
-    def _u_kernel(perm, score, y, ct, fa, fb, cb, off, total):  # pragma: no cover - compiled
+    @njit(parallel=True, cache=True, nogil=True)
+    def _u_kernel(score, y, ct, fa, fb, cb, off, total):  # pragma: no cover - compiled
+        # Rows arrive sorted by score. Families are independent, so they run in parallel;
+        # each family's slices occupy their own range of the output arrays.
         nf = fa.shape[0]
-        neg_before = np.zeros(total)
         u = np.zeros(total)
-        pos_blk = np.zeros(total)
-        neg_blk = np.zeros(total)
-        n = perm.shape[0]
-        i = 0
-        while i < n:
-            s = score[perm[i]]
-            j = i
-            while j < n and score[perm[j]] == s:
-                j += 1
-            for r in range(i, j):
-                row = ct[perm[r]]
-                pos = y[perm[r]] == 1
-                for k in range(nf):
-                    idx = off[k] + np.int64(row[fa[k]]) * cb[k] + row[fb[k]]
-                    if pos:
-                        u[idx] += neg_before[idx]
+        n = score.shape[0]
+        for k in prange(nf):
+            size = off[k + 1] - off[k]
+            neg_before = np.zeros(size)
+            pos_blk = np.zeros(size)
+            neg_blk = np.zeros(size)
+            uk = np.zeros(size)
+            i = 0
+            while i < n:
+                s = score[i]
+                j = i
+                while j < n and score[j] == s:
+                    j += 1
+                for r in range(i, j):
+                    idx = np.int64(ct[r, fa[k]]) * cb[k] + ct[r, fb[k]]
+                    if y[r] == 1:
+                        uk[idx] += neg_before[idx]
                         pos_blk[idx] += 1.0
                     else:
                         neg_blk[idx] += 1.0
-            for r in range(i, j):  # ties within the block count one half
-                row = ct[perm[r]]
-                for k in range(nf):
-                    idx = off[k] + np.int64(row[fa[k]]) * cb[k] + row[fb[k]]
+                for r in range(i, j):  # ties within the block count one half
+                    idx = np.int64(ct[r, fa[k]]) * cb[k] + ct[r, fb[k]]
                     if pos_blk[idx] != 0.0 or neg_blk[idx] != 0.0:
-                        u[idx] += 0.5 * pos_blk[idx] * neg_blk[idx]
+                        uk[idx] += 0.5 * pos_blk[idx] * neg_blk[idx]
                         neg_before[idx] += neg_blk[idx]
                         pos_blk[idx] = 0.0
                         neg_blk[idx] = 0.0
-            i = j
+                i = j
+            for q in range(size):
+                u[off[k] + q] = uk[q]
         return u
 
 
@@ -83,15 +85,21 @@ def slice_auc(codes, cards, y, score, *, families, counts) -> np.ndarray:
     ``counts`` is the (slices × 4) cell array of the same families, for n₊ and n₋.
     """
     shapes, offsets = _layout(families, cards)
-    perm = np.argsort(score, kind="stable")
+    perm = np.argsort(score)  # order within ties does not matter: ties are counted as blocks
     yy = y.astype(np.int8, copy=False)
     if njit is not None:
         n_attr = len(codes)
         fa = np.array([f[0] if len(f) > 0 else n_attr for f in families], dtype=np.int64)
         fb = np.array([f[1] if len(f) > 1 else n_attr for f in families], dtype=np.int64)
         cb = np.array([cards[f[1]] if len(f) > 1 else 1 for f in families], dtype=np.int64)
-        ct = code_matrix(list(codes) + [np.zeros(len(y), dtype=np.int32)], list(cards) + [1])
-        u = _u_kernel(perm, score, yy, ct, fa, fb, cb, offsets[:-1].copy(), int(offsets[-1]))
+        used = sorted({a for f in families for a in f})
+        local = {a: i for i, a in enumerate(used)}
+        fa = np.array([local.get(int(x), len(used)) for x in fa], dtype=np.int64)
+        fb = np.array([local.get(int(x), len(used)) for x in fb], dtype=np.int64)
+        # Gather the rows into score order once, so the kernel reads them sequentially.
+        ct = code_matrix([codes[a] for a in used] + [np.zeros(len(y), dtype=np.int32)],
+                         [cards[a] for a in used] + [1])[perm]
+        u = _u_kernel(score[perm], yy[perm], ct, fa, fb, cb, offsets.copy(), int(offsets[-1]))
     else:  # pragma: no cover
         u = _u_numpy(perm, score, yy, codes, cards, families, offsets)
     npos = counts[:, 2] + counts[:, 3]

@@ -63,33 +63,22 @@ def _natural_key(v: str):
 
 
 def _categorical(name: str, s: pd.Series, kind: str) -> Attribute:
+    # raw codes: -1 for missing, else an index into ``text``; one remap pass gives final codes.
     if isinstance(s.dtype, pd.CategoricalDtype):
-        cats = [str(c) for c in s.cat.categories]
-        codes = s.cat.codes.to_numpy().astype(np.int32)
-        present = np.bincount(codes[codes >= 0], minlength=len(cats)) > 0
-        order = sorted((c for c, p in zip(cats, present) if p), key=_natural_key)
-        remap = np.full(len(cats) + 1, -1, dtype=np.int32)
-        for new, c in enumerate(order):
-            remap[cats.index(c)] = new
-        codes = remap[codes]  # -1 (missing) maps through remap[-1] == -1
-        levels = order
+        raw = s.cat.codes.to_numpy()
+        text = [str(c) for c in s.cat.categories]
     else:
-        raw_codes, uniques = pd.factorize(s, use_na_sentinel=True)
-        text = []
-        for u in list(uniques):
-            if isinstance(u, (float, np.floating)) and float(u).is_integer():
-                text.append(str(int(u)))
-            else:
-                text.append(str(u))
-        order = sorted(set(text), key=_natural_key)
-        pos = {t: i for i, t in enumerate(order)}
-        remap = np.array([pos[t] for t in text] + [-1], dtype=np.int32)
-        codes = remap[raw_codes]  # sentinel -1 picks the trailing -1
-        levels = order
-    n_missing = int((codes < 0).sum())
-    if n_missing:
-        codes = np.where(codes < 0, len(levels), codes).astype(np.int32)
-        levels = list(levels) + [MISSING]
+        raw, uniques = pd.factorize(s, use_na_sentinel=True)
+        text = [str(int(u)) if isinstance(u, (float, np.floating)) and float(u).is_integer() else str(u)
+                for u in list(uniques)]
+    shifted = raw.astype(np.intp) + 1
+    counts = np.bincount(shifted, minlength=len(text) + 1)
+    n_missing = int(counts[0])
+    order = sorted({t for t, c in zip(text, counts[1:]) if c > 0}, key=_natural_key)
+    pos = {t: i for i, t in enumerate(order)}
+    levels = order + ([MISSING] if n_missing else [])
+    remap = np.array([len(order) if n_missing else -1] + [pos.get(t, -1) for t in text], dtype=np.int32)
+    codes = remap[shifted]
     return Attribute(name=name, kind=kind, levels=tuple(levels), codes=codes, n_missing=n_missing)
 
 
@@ -161,8 +150,13 @@ def encode_attributes(
     n = len(df)
     for col in columns:
         s = df[col]
-        nonmiss = s.dropna()
-        nu = int(nonmiss.nunique())
+        if isinstance(s.dtype, pd.CategoricalDtype):
+            cc = s.cat.codes.to_numpy()
+            n_nonmiss = int((cc >= 0).sum())
+            nu = int((np.bincount(cc[cc >= 0], minlength=len(s.cat.categories)) > 0).sum())
+        else:
+            n_nonmiss = int(s.notna().sum())
+            nu = int(s.nunique(dropna=True))
         if nu == 0:
             skipped[col] = "every value is missing"
             continue
@@ -187,8 +181,8 @@ def encode_attributes(
             else:
                 attrs.append(_binned(col, v, None, n_bins))
             continue
-        if nu >= 0.9 * len(nonmiss) and nu > 20:
-            skipped[col] = f"looks like an identifier ({nu} distinct values in {len(nonmiss)} rows)"
+        if nu >= 0.9 * n_nonmiss and nu > 20:
+            skipped[col] = f"looks like an identifier ({nu} distinct values in {n_nonmiss} rows)"
             continue
         if nu > max_levels:
             skipped[col] = f"{nu} distinct values, more than max_levels={max_levels}; bin or group it first"

@@ -71,17 +71,21 @@ def canonical(value: Any) -> str:
 
 
 def _canonical_column(s: pd.Series) -> np.ndarray:
-    if pd.api.types.is_bool_dtype(s):
-        return np.where(s.to_numpy(dtype=bool), "1", "0").astype(object)
-    if pd.api.types.is_numeric_dtype(s):
-        v = s.to_numpy(dtype=float)
-        out = np.empty(len(v), dtype=object)
-        integral = np.isfinite(v) & (v == np.round(v))
-        out[integral] = [str(int(x)) for x in v[integral]] if integral.any() else []
-        rest = ~integral
-        out[rest] = [repr(float(x)) for x in v[rest]] if rest.any() else []
-        return out
-    return np.asarray([str(x) for x in s.to_numpy(dtype=object)], dtype=object)
+    """``canonical`` applied to every value, through the column's distinct values (fast)."""
+    codes, text = _canonical_codes(s)
+    return text[codes]
+
+
+def _canonical_codes(s: pd.Series) -> tuple[np.ndarray, np.ndarray]:
+    """Codes into an array of canonical texts (the last entry, '', stands for missing)."""
+    codes, uniques = pd.factorize(s, use_na_sentinel=True)
+    text = np.array([canonical(u) for u in list(uniques)] + [""], dtype=object)
+    return codes, text
+
+
+def _is_text(codes: np.ndarray, text: np.ndarray, value: str) -> np.ndarray:
+    hit = np.array([t == value for t in text], dtype=bool)
+    return hit[codes]
 
 
 def sha256_of(path: str) -> tuple[str, int]:
@@ -211,8 +215,8 @@ def read_outcomes(
     missing = ys.isna().to_numpy()
     if missing.any():
         raise AuditInputError(f"label column '{label}' has a missing value at {_row(_first_bad(missing))}")
-    ytext = _canonical_column(ys)
-    classes = sorted(set(ytext.tolist()))
+    ycodes, ytext_u = _canonical_codes(ys)
+    classes = sorted(set(ytext_u[np.unique(ycodes)].tolist()))
     if len(classes) != 2:
         shown = ", ".join(classes[:5]) + (", ..." if len(classes) > 5 else "")
         raise AuditInputError(
@@ -230,7 +234,7 @@ def read_outcomes(
                 f"positive class {positive!r} does not occur in label column '{label}' (classes: {classes[0]}, {classes[1]})"
             )
     neg = classes[0] if classes[1] == pos else classes[1]
-    y = (ytext == pos).astype(np.int8)
+    y = _is_text(ycodes, ytext_u, pos).astype(np.int8)
 
     p = None
     if score is not None:
@@ -260,15 +264,15 @@ def read_outcomes(
         pmiss = ps.isna().to_numpy()
         if pmiss.any():
             raise AuditInputError(f"prediction column '{pred}' has a missing value at {_row(_first_bad(pmiss))}")
-        ptext = _canonical_column(ps)
-        unknown = ~np.isin(ptext, np.array(classes, dtype=object))
+        pcodes, ptext_u = _canonical_codes(ps)
+        unknown = ~np.array([t in classes for t in ptext_u], dtype=bool)[pcodes]
         if unknown.any():
             i = _first_bad(unknown)
             raise AuditInputError(
-                f"prediction column '{pred}' has value {ptext[i]!r} at {_row(i)}, which is not a class of "
+                f"prediction column '{pred}' has value {ptext_u[pcodes[i]]!r} at {_row(i)}, which is not a class of "
                 f"label column '{label}' ({classes[0]}, {classes[1]})"
             )
-        yhat = (ptext == pos).astype(np.int8)
+        yhat = _is_text(pcodes, ptext_u, pos).astype(np.int8)
         source = "column"
     else:
         yhat = (p >= float(threshold)).astype(np.int8)

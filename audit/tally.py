@@ -81,6 +81,16 @@ def _layout(families, cards):
     return shapes, offsets
 
 
+def column_matrix(codes: list[np.ndarray], cards: list[int]) -> np.ndarray:
+    """Attributes × rows matrix of codes in the narrowest integer type (one contiguous row per attribute)."""
+    top = max(cards) if cards else 1
+    dt = np.uint8 if top <= 255 else (np.int16 if top <= 32767 else np.int32)
+    out = np.empty((len(codes), len(codes[0]) if codes else 0), dtype=dt)
+    for i, c in enumerate(codes):
+        out[i] = c
+    return out
+
+
 def code_matrix(codes: list[np.ndarray], cards: list[int]) -> np.ndarray:
     """Row-major (rows × attributes) matrix of codes in the narrowest integer type."""
     top = max(cards) if cards else 1
@@ -141,8 +151,44 @@ if numba is not None:
                     o[idx, kk + 3] += b2
         return acc.sum(axis=0)
 
+    @njit(parallel=True, cache=True, nogil=True)
+    def _group_kernel(cm, cell, ll, br, members, radix, n_members, ga, gb, gcb, off, total, kk, nth):  # pragma: no cover
+        # cm is attributes × rows. Each row's group codes are built on the fly (mixed radix of
+        # the member attributes), then one record per pair of groups is updated.
+        n = cm.shape[1]
+        ng = members.shape[0]
+        nf = ga.shape[0]
+        width = kk + 4
+        acc = np.zeros((nth, total, width), dtype=np.float64)
+        chunk = (n + nth - 1) // nth
+        for t in prange(nth):
+            lo = t * chunk
+            hi = min(n, lo + chunk)
+            o = acc[t]
+            g = np.zeros(ng, dtype=np.int64)
+            for r in range(lo, hi):
+                for q in range(ng):
+                    v = np.int64(0)
+                    for m in range(n_members[q]):
+                        v = v * radix[q, m] + cm[members[q, m], r]
+                    g[q] = v
+                ce = cell[r]
+                a = ll[r]
+                b = br[r]
+                a2 = a * a
+                b2 = b * b
+                for k in range(nf):
+                    idx = off[k] + g[ga[k]] * gcb[k] + g[gb[k]]
+                    o[idx, ce] += 1.0
+                    o[idx, kk] += a
+                    o[idx, kk + 1] += a2
+                    o[idx, kk + 2] += b
+                    o[idx, kk + 3] += b2
+        return acc.sum(axis=0)
 
-def tally(codes, cards, cell, ll=None, br=None, *, families, n_classes=2, kernel="auto") -> Tally:
+
+def tally(codes, cards, cell, ll=None, br=None, *, families, n_classes=2, kernel="auto",
+          group_limit: int = 64) -> Tally:
     """Tally every family in ``families`` (tuples of at most two attribute indices).
 
     ``kernel`` is ``"compiled"``, ``"numpy"`` or ``"auto"`` (compiled when numba imports).
@@ -153,8 +199,84 @@ def tally(codes, cards, cell, ll=None, br=None, *, families, n_classes=2, kernel
     pairs = tuple(f for f in families if len(f) == 2)
     if pairs and all(_derivable(f, pairs) for f in families if len(f) < 2):
         # Count only the pairs; every single and the whole table are their margins.
-        return _from_pairs(_compiled(codes, cards, cell, ll, br, pairs, n_classes), families, cards)
+        return _from_pairs(_grouped_pairs(codes, cards, cell, ll, br, pairs, n_classes, group_limit),
+                           families, cards)
     return _compiled(codes, cards, cell, ll, br, families, n_classes)
+
+
+def plan_groups(cards, limit: int) -> list[list[int]]:
+    """Pack attributes into groups whose product of cardinalities stays within ``limit``
+    (largest attribute first, filled with the smallest that fit)."""
+    order = sorted(range(len(cards)), key=lambda i: (-cards[i], i))
+    used: set[int] = set()
+    groups = []
+    for i in order:
+        if i in used:
+            continue
+        g, prod = [i], cards[i]
+        used.add(i)
+        for j in reversed(order):
+            if j not in used and prod * cards[j] <= limit:
+                g.append(j)
+                prod *= cards[j]
+                used.add(j)
+        groups.append(sorted(g))
+    return sorted(groups)
+
+
+def _grouped_pairs(codes, cards, cell, ll, br, pairs, n_classes, limit) -> Tally:
+    """Tally attribute pairs through pairs of attribute *groups*.
+
+    Each row updates one cell per pair of groups instead of one per pair of attributes
+    (21 instead of 66 updates for 12 attributes); each attribute pair is then a margin of
+    the table of the two groups that hold it (or of any table holding its one group).
+    """
+    kk = n_classes * n_classes
+    groups = plan_groups(cards, limit)
+    if len(groups) == len(cards) or len(groups) < 2:
+        return _compiled(codes, cards, cell, ll, br, pairs, n_classes)
+    where = {a: gi for gi, g in enumerate(groups) for a in g}
+    gcards = [int(np.prod([cards[a] for a in g])) for g in groups]
+    gpairs = [(i, j) for i in range(len(groups)) for j in range(i + 1, len(groups))]
+    width = max(len(g) for g in groups)
+    members = np.zeros((len(groups), width), dtype=np.int64)
+    radix = np.ones((len(groups), width), dtype=np.int64)
+    for q, g in enumerate(groups):
+        members[q, :len(g)] = g
+        radix[q, :len(g)] = [cards[a] for a in g]
+    n_members = np.array([len(g) for g in groups], dtype=np.int64)
+    gshapes, goffsets = _layout(gpairs, gcards)
+    ga = np.array([p[0] for p in gpairs], dtype=np.int64)
+    gb = np.array([p[1] for p in gpairs], dtype=np.int64)
+    gcb = np.array([gcards[p[1]] for p in gpairs], dtype=np.int64)
+    cm = column_matrix(codes, cards)
+    if ll is None:
+        ll = br = np.zeros(len(cell))
+    nth = max(1, min(numba.get_num_threads(), 1 + len(cell) // 50_000))
+    acc = _group_kernel(cm, cell.astype(np.int8, copy=False), ll, br, members, radix, n_members, ga, gb, gcb,
+                        goffsets[:-1].copy(), int(goffsets[-1]), kk, nth)
+    gt = Tally(tuple(gpairs), gshapes, goffsets, None, None, n_classes)
+    shapes, offsets = _layout(pairs, cards)
+    out = np.zeros((int(offsets[-1]), kk + N_SUMS))
+    for k, (i, j) in enumerate(pairs):
+        gi, gj = where[i], where[j]
+        if gi == gj:
+            other = 1 if gi == 0 else 0
+            gp = (min(gi, other), max(gi, other))
+        else:
+            gp = (gi, gj) if gi < gj else (gj, gi)
+        f = gpairs.index(gp)
+        axes_attrs = groups[gp[0]] + groups[gp[1]]
+        block = acc[gt.offsets[f]:gt.offsets[f + 1]].reshape([cards[a] for a in axes_attrs] + [kk + N_SUMS])
+        # positions of i and j; if a group appears once, each attribute appears once
+        ai, aj = axes_attrs.index(i), axes_attrs.index(j)
+        keep = sorted((ai, aj))
+        summed = block.sum(axis=tuple(ax for ax in range(len(axes_attrs)) if ax not in keep))
+        if ai > aj:
+            summed = summed.transpose(1, 0, 2)
+        out[offsets[k]:offsets[k + 1]] = summed.reshape(-1, kk + N_SUMS)
+    return Tally(tuple(pairs), shapes, offsets, np.rint(out[:, :kk]).astype(np.int64),
+                 np.ascontiguousarray(out[:, kk:]), n_classes)
 
 
 def _derivable(fam, pairs) -> bool:

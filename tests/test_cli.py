@@ -21,7 +21,7 @@ def test_demo_end_to_end(demo_csv, tmp_path):
     assert r.returncode == 0, r.stderr
     assert "age_band=18-24 & employment_type=gig" in r.stdout
     assert "not findings of discrimination" in r.stdout
-    sl = pd.read_csv(out / "slices.csv", keep_default_na=False)
+    sl = pd.read_csv(out / "slices.csv", dtype=str, keep_default_na=False)
     for col in ["slice", "order", "n", "tp", "fp", "fn", "tn", "precision", "recall", "f1", "accuracy", "log_loss",
                 "p_value", "q_value", "flagged", "rank", "status"]:
         assert col in sl.columns
