@@ -103,7 +103,7 @@ def _figure(fig, div_id: str) -> str:
     return f'<div class="chart">{body}</div>'
 
 
-def build_html(result, *, command: str | None = None, created: str | None = None, top: int = 25) -> str:
+def build_html(result, *, command: str | None = None, created: str | None = None, top: int | None = None) -> str:
     """The report as one HTML string (self-contained, no external resources)."""
     cfg = result.config
     m = result.metric
@@ -116,9 +116,10 @@ def build_html(result, *, command: str | None = None, created: str | None = None
 
     # 1. identity
     ident = [("Model", e(cfg.model_name or "(not given)")), ("Model version", e(cfg.model_version or "(not given)")),
-             ("Intended use", e(cfg.intended_use or "(not given)")), ("Audit date (UTC)", e(created)),
+             ("Intended use", e(cfg.intended_use or "(not given)")),
              ("Tool", f"Fissure {e(result.version)}"), ("Configuration hash (SHA-256)", f"<code>{cfg.digest()}</code>")]
-    parts.append(_section("identity", _table(["item", "value"], ident)))
+    parts.append(_section("identity", f"<p id='date-line'>Audit date (UTC): {e(created)}</p>"
+                          + _table(["item", "value"], ident)))
 
     # 2. data
     src = result.source
@@ -178,6 +179,7 @@ def build_html(result, *, command: str | None = None, created: str | None = None
              f"support: <b>{st.get('below_support', 0)}</b>; without enough rest: {st.get('no_rest', 0)}; undefined: "
              f"{st.get('undefined', 0)}; <span class='flag'>flagged: {st['flagged']}</span>.</p>")
     flagged = result.flagged()
+    top = len(flagged) if top is None else top
     if len(flagged):
         frows = []
         for _, r in flagged.head(top).iterrows():
@@ -266,8 +268,8 @@ def build_html(result, *, command: str | None = None, created: str | None = None
     head = (f"<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'><title>{e(title)}</title>"
             f"<meta name='generator' content='Fissure {e(result.version)}'>"
             f"<style>{CSS}</style><script type='text/javascript'>{plotly_js}</script></head><body>")
-    intro = (f"<h1>{e(title)}</h1><p class='muted' id='date-line'>Prepared {e(created)} by Fissure "
-             f"{e(result.version)}</p><div class='caution'>{e(CAUTION)}</div>")
+    intro = (f"<h1>{e(title)}</h1><p class='muted'>Prepared by Fissure {e(result.version)}</p>"
+             f"<div class='caution'>{e(CAUTION)}</div>")
     return head + intro + "".join(parts) + "</body></html>\n"
 
 
@@ -277,6 +279,10 @@ def _section(key: str, body: str) -> str:
 
 
 def find_chromium() -> str | None:
+    """Path of a Chromium browser; ``FISSURE_CHROMIUM`` overrides (``none`` disables the PDF route)."""
+    forced = os.environ.get("FISSURE_CHROMIUM")
+    if forced:
+        return None if forced.lower() == "none" else forced
     for name in ("chromium", "chromium-browser", "google-chrome"):
         path = shutil.which(name)
         if path:

@@ -81,3 +81,52 @@ def slice_mask(df: pd.DataFrame, row) -> np.ndarray:
         if row[a]:
             m &= mask_for(df, row[a], row[v])
     return m
+
+
+# ----------------------------------------------------------------------------- real browser
+CHROMIUM = "/usr/bin/chromium"
+CHROMIUM_ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
+                 "--disable-component-update", "--disable-sync", "--no-first-run", "--disable-quic"]
+
+
+@pytest.fixture(scope="session")
+def browser_type_launch_args(browser_type_launch_args):
+    # pytest-playwright: use Debian's chromium, never a downloaded browser.
+    return {**browser_type_launch_args, "executable_path": CHROMIUM, "args": CHROMIUM_ARGS}
+
+
+@pytest.fixture(scope="session")
+def app_url(tmp_path_factory):
+    """The real page served by streamlit on a free 127.0.0.1 port."""
+    import socket
+    import subprocess
+    import time
+    import urllib.request
+
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        port = s.getsockname()[1]
+    home = tmp_path_factory.mktemp("home")
+    log = open(home / "streamlit.log", "w")
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "streamlit", "run", os.path.join(ROOT, "ui", "app.py"), "--server.headless", "true",
+         "--server.port", str(port), "--server.address", "127.0.0.1", "--browser.gatherUsageStats", "false",
+         "--server.fileWatcherType", "none"],
+        cwd=ROOT, stdout=log, stderr=subprocess.STDOUT, env={**os.environ, "HOME": str(home)})
+    url = f"http://127.0.0.1:{port}"
+    deadline = time.time() + 60
+    while time.time() < deadline:
+        try:
+            if urllib.request.urlopen(url + "/_stcore/health", timeout=2).read() == b"ok":
+                break
+        except OSError:
+            time.sleep(0.3)
+    else:
+        proc.terminate()
+        raise RuntimeError("streamlit did not start; see " + str(home / "streamlit.log"))
+    yield url
+    proc.terminate()
+    try:
+        proc.wait(timeout=10)
+    except subprocess.TimeoutExpired:
+        proc.kill()
