@@ -101,6 +101,31 @@ class AuditResult:
         whole = self.slice(ALL)
         return {k: int(whole[k] - s[k]) for k in ("tp", "fp", "fn", "tn", "n")}
 
+    def compare(self, name: str) -> pd.DataFrame:
+        """Every metric of slice ``name`` beside the same metric for the rest of the rows, with intervals.
+
+        Columns: ``metric``, ``slice``, ``slice_low``, ``slice_high``, ``rest``, ``rest_low``, ``rest_high``.
+        """
+        s = self.slice(name)
+        whole = self.slice(ALL)
+        counts = np.array([[int(s["tn"]), int(s["fp"]), int(s["fn"]), int(s["tp"])],
+                           [int(whole["tn"] - s["tn"]), int(whole["fp"] - s["fp"]), int(whole["fn"] - s["fn"]),
+                            int(whole["tp"] - s["tp"])]])
+        c = count_frame(counts)
+        v = metric_values(c, None)
+        lvl, meth = self.config.level, self.config.interval
+        rows = []
+        for r in RATE_COLUMNS:
+            lo, hi = proportion_interval(c[_NUMERATOR_OF[r]], c[_DENOMINATOR_OF[r]], method=meth, level=lvl)
+            rows.append((r, v[r][0], lo[0], hi[0], v[r][1], lo[1], hi[1]))
+        lo, hi = f1_interval(c["tp"], c["fp"], c["fn"], method=meth, level=lvl)
+        rows.append(("f1", v["f1"][0], lo[0], hi[0], v["f1"][1], lo[1], hi[1]))
+        out = pd.DataFrame(rows, columns=["metric", "slice", "slice_low", "slice_high", "rest", "rest_low",
+                                          "rest_high"])
+        total_errors = int(whole["errors"])
+        out.attrs["share_of_errors"] = float(s["errors"] / total_errors) if total_errors else float("nan")
+        return out
+
     def status_counts(self) -> dict[str, int]:
         st = self.slices.loc[self.slices["order"] > 0, "status"].value_counts()
         out = {k: int(v) for k, v in st.items()}

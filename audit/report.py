@@ -51,13 +51,12 @@ th { background: #eef2f7; } td.num { text-align: right; font-variant-numeric: ta
 pre { background: #f4f6f9; padding: .8em; overflow-x: auto; font-size: 12px; white-space: pre-wrap; }
 .chart { width: 900px; max-width: 100%; margin: .6em 0; page-break-inside: avoid; }
 .blank { display: inline-block; min-width: 16em; border-bottom: 1px solid var(--ink); height: 1.2em; }
-@page { size: A4; margin: 16mm 14mm; }
+@page { margin: 16mm 14mm; }  /* no fixed size: prints on A4 or Letter as the printer is set */
 @media print {
   body { max-width: none; margin: 0; font-size: 11px; }
   section { page-break-before: always; } section#identity { page-break-before: avoid; }
   .chart { width: 170mm; height: auto; } table { page-break-inside: auto; } tr { page-break-inside: avoid; }
 }
-@media print and (max-height: 280mm) { @page { size: letter; } }
 """
 
 

@@ -52,7 +52,10 @@ def load(data: bytes, name: str) -> pd.DataFrame:
 @st.cache_data(show_spinner=False, max_entries=8)
 def audit_cached(data: bytes, name: str, settings: tuple):
     df, source = read_table(data, name=name)
-    return run(df, source=source, **dict(settings))
+    kw = dict(settings)
+    if "reference" in kw:
+        kw["reference"] = dict(kw["reference"])
+    return run(df, source=source, **kw)
 
 
 @st.cache_data(show_spinner=False, max_entries=4)
@@ -134,7 +137,7 @@ except AuditInputError as exc:
 cols = list(df.columns)
 FORM_KEYS = ("label", "score", "pred", "positive", "threshold", "bins", "attributes", "metric", "min_support",
              "min_metric", "max_order", "alpha", "correction", "interval", "level", "protected", "favorable",
-             "min_share", "filter_attrs", "filter_order", "filter_flagged", "slice_pick", "heat_a", "heat_b",
+             "min_share", "reference", "filter_attrs", "filter_order", "filter_flagged", "slice_pick", "heat_a", "heat_b",
              "fair_attr")
 signature = (name, len(data), hash(data))
 if st.session_state.get("_file_signature") != signature:
@@ -190,6 +193,8 @@ with st.form("settings"):
                              help="For a delinquency model, being predicted not delinquent is favourable.")
     min_share = f3.number_input("Leave groups under this share out of ratios", 0.0, 0.5, 0.02, 0.01,
                                 key="min_share")
+    reference_text = st.text_input("Reference groups (optional; default: the highest selection rate), e.g. "
+                                   "sex=female; age_band=35-44", key="reference")
     submitted = st.form_submit_button("Run the audit")
 
 settings = {
@@ -203,6 +208,13 @@ if protected:
     settings["protected"] = tuple(protected)
     settings["favorable"] = None if favorable == "(positive prediction)" else favorable
     settings["min_group_share"] = float(min_share)
+    refs = {}
+    for part in (reference_text or "").split(";"):
+        if "=" in part:
+            k_, v_ = part.split("=", 1)
+            refs[k_.strip()] = v_.strip()
+    if refs:
+        settings["reference"] = tuple(sorted(refs.items()))
 key = tuple(sorted(settings.items()))
 
 try:
@@ -279,18 +291,16 @@ if choices:
     a, b = st.columns(2)
     a.plotly_chart(charts.confusion(s, result.classes, title=f"In the slice (n={int(s['n']):,})"), key="cm_slice")
     b.plotly_chart(charts.confusion(rest, result.classes, title=f"In the rest (n={rest['n']:,})"), key="cm_rest")
-    total_err = int(result.slices.iloc[0]["errors"])
-    share_err = s["errors"] / total_err if total_err else float("nan")
+    comp_df = result.compare(chosen)
     st.markdown(f"Status: **{esc(s['status'])}** {esc(s['status_reason'])}  ·  this slice holds "
-                f"**{share_err:.1%}** of all errors and {s['share']:.1%} of all rows.")
-    comp = []
-    whole = result.slices.iloc[0]
-    for k in ["error_rate", "accuracy", "precision", "recall", "specificity", "fpr", "fnr", "f1", "selection_rate",
-              "base_rate", "log_loss", "brier", "roc_auc"]:
-        comp.append({"metric": k, "slice": s[k], f"slice {lvl}% low": s.get(k + "_low", np.nan),
-                     f"slice {lvl}% high": s.get(k + "_high", np.nan), "whole table": whole[k]})
-    comp_df = pd.DataFrame(comp)
-    st.dataframe(comp_df, hide_index=True, width="stretch")
+                f"**{comp_df.attrs['share_of_errors']:.1%}** of all errors and {s['share']:.1%} of all rows.")
+    st.dataframe(comp_df, hide_index=True, width="stretch",
+                 column_config={c: st.column_config.NumberColumn(format="%.4f") for c in comp_df.columns[1:]})
+    if result.overall.get("log_loss") is not None:
+        st.caption(f"Mean losses in the slice: log loss {fmt(s['log_loss'])} [{fmt(s['log_loss_low'])}, "
+                   f"{fmt(s['log_loss_high'])}], Brier {fmt(s['brier'])} [{fmt(s['brier_low'])}, "
+                   f"{fmt(s['brier_high'])}]" + (f", ROC AUC {fmt(s['roc_auc'])}" if s["roc_auc"] == s["roc_auc"]
+                                                 else "") + ".")
     if s["status"] == "tested":
         st.markdown(f"Audited metric **{esc(m.name)}**: slice {fmt(s['metric_value'])} vs rest {fmt(s['rest_value'])}; "
                     f"difference {fmt(s['diff'])} [{fmt(s['diff_low'])}, {fmt(s['diff_high'])}], "

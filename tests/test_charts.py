@@ -1,0 +1,82 @@
+"""Chart builders are pure functions of the result: check what they draw without a browser."""
+import numpy as np
+import pytest
+
+import audit
+from audit import charts
+from conftest import random_table, slice_mask
+
+
+@pytest.fixture(scope="module")
+def res():
+    return audit.run(random_table(n=2500, seed=21, effect=0.35), label="y", score="p", min_support=130,
+                     protected=["region"], favorable="1")
+
+
+def test_top_slices_draws_intervals_and_rest(res):
+    fig = charts.top_slices(res, k=8)
+    top = res.ranked().head(8)
+    pts = {tr.name: tr for tr in fig.data}
+    assert "rest of the rows" in pts
+    drawn = sum(len(tr.x) for tr in fig.data if tr.name in ("flagged slice", "not flagged"))
+    assert drawn == len(top)
+    for tr in fig.data:
+        if tr.name in ("flagged slice", "not flagged"):
+            names = [y.split(" ", 1)[1] for y in tr.y]
+            sub = top.set_index("slice").loc[names]
+            np.testing.assert_allclose(tr.error_x.array, sub["metric_high"] - sub["metric_value"])
+            np.testing.assert_allclose(tr.error_x.arrayminus, sub["metric_value"] - sub["metric_low"])
+    assert "flagged slice" in pts  # the planted slice is flagged and drawn as such
+
+
+def test_confusion_grid_shows_counts_and_shares(res):
+    o = res.overall
+    fig = charts.confusion(o, res.classes)
+    z = np.array(fig.data[0].z)
+    assert z.tolist() == [[o["tn"], o["fp"]], [o["fn"], o["tp"]]]
+    assert f"{o['tp']:,}" in fig.data[0].text[1][1] and "%" in fig.data[0].text[1][1]
+
+
+def test_pair_heatmap_labels_support_and_small_cells(res):
+    fig = charts.pair_heatmap(res, "region", "plan")
+    text = np.array(fig.data[0].text)
+    cells = res.slices[(res.slices["attribute_1"] == "region") & (res.slices["attribute_2"] == "plan")]
+    small = cells[cells["status"] == "below_support"]
+    assert len(small) > 0
+    assert sum("below support" in t for t in text.ravel()) == len(small)
+    assert all("n=" in t for t in text.ravel() if t != "no rows")
+    z = np.array(fig.data[0].z, dtype=float)
+    assert np.isnan(z).sum() >= len(small)  # greyed, not coloured like data
+
+
+def test_noise_band_marks_every_flagged_slice(res):
+    fig = charts.noise_band(res)
+    flagged = [tr for tr in fig.data if tr.name == "flagged"]
+    assert flagged and len(flagged[0].x) == int(res.tested()["flagged"].sum())
+    band = fig.data[0]
+    assert band.fill == "toself"
+
+
+def test_fairness_charts(res):
+    g = res.fairness.groups
+    fig = charts.selection_rates(g, "region")
+    ref = g[(g["attribute"] == "region") & g["is_reference"]]["selection_rate"].iloc[0]
+    lines = [s for s in fig.layout.shapes if s.type == "line"]
+    assert lines and lines[0].y0 == pytest.approx(0.8 * ref)
+    eo = charts.error_rate_balance(g, "region")
+    assert len(eo.data[0].x) == int((g["attribute"] == "region").sum())
+
+
+def test_compare_matches_rows_outside_the_slice(res):
+    from sklearn.metrics import precision_score, recall_score
+
+    df = random_table(n=2500, seed=21, effect=0.35)
+    row = res.slice("region=r2")
+    rest = ~slice_mask(df, row)
+    y, yhat = df["y"].to_numpy(), (df["p"].to_numpy() >= 0.5).astype(int)
+    t = res.compare("region=r2").set_index("metric")
+    # reference: scikit-learn on the rows outside the slice
+    assert t.loc["recall", "rest"] == pytest.approx(recall_score(y[rest], yhat[rest]))
+    assert t.loc["precision", "rest"] == pytest.approx(precision_score(y[rest], yhat[rest]))
+    assert t.loc["error_rate", "slice"] == pytest.approx(row["error_rate"])
+    assert t.loc["error_rate", "rest_low"] <= t.loc["error_rate", "rest"] <= t.loc["error_rate", "rest_high"]
