@@ -62,8 +62,8 @@ def _natural_key(v: str):
         return (1, 0.0, v)
 
 
-def _categorical(name: str, s: pd.Series, kind: str) -> Attribute:
-    # raw codes: -1 for missing, else an index into ``text``; one remap pass gives final codes.
+def _raw_levels(s: pd.Series):
+    """Raw codes (-1 = missing), their texts and per-code row counts, without copying the column."""
     if isinstance(s.dtype, pd.CategoricalDtype):
         raw = s.cat.codes.to_numpy()
         text = [str(c) for c in s.cat.categories]
@@ -71,14 +71,28 @@ def _categorical(name: str, s: pd.Series, kind: str) -> Attribute:
         raw, uniques = pd.factorize(s, use_na_sentinel=True)
         text = [str(int(u)) if isinstance(u, (float, np.floating)) and float(u).is_integer() else str(u)
                 for u in list(uniques)]
-    shifted = raw.astype(np.intp) + 1
-    counts = np.bincount(shifted, minlength=len(text) + 1)
-    n_missing = int(counts[0])
-    order = sorted({t for t, c in zip(text, counts[1:]) if c > 0}, key=_natural_key)
+    # Viewing the signed codes as unsigned puts -1 (missing) in the last bin of the histogram.
+    unsigned = raw.view(np.dtype(f"u{raw.dtype.itemsize}"))
+    if raw.dtype.itemsize <= 2:
+        hist = np.bincount(unsigned, minlength=1 << (8 * raw.dtype.itemsize))
+        counts, n_missing = hist[:len(text)], int(hist[-1])
+    else:
+        n_missing = int((raw < 0).sum())
+        counts = np.bincount(raw[raw >= 0], minlength=len(text)) if n_missing else np.bincount(raw, minlength=len(text))
+    return raw, text, counts, n_missing
+
+
+def _categorical(name: str, s: pd.Series, kind: str, raw_levels=None) -> Attribute:
+    raw, text, counts, n_missing = raw_levels or _raw_levels(s)
+    order = sorted({t for t, c in zip(text, counts) if c > 0}, key=_natural_key)
     pos = {t: i for i, t in enumerate(order)}
     levels = order + ([MISSING] if n_missing else [])
-    remap = np.array([len(order) if n_missing else -1] + [pos.get(t, -1) for t in text], dtype=np.int32)
-    codes = remap[shifted]
+    # remap[-1] (taken with mode="wrap") is the missing level.
+    remap = np.array([pos.get(t, -1) for t in text] + [len(order) if n_missing else -1], dtype=np.int32)
+    if n_missing:
+        codes = np.take(remap, raw, mode="wrap")
+    else:
+        codes = np.take(remap[:-1].astype(np.uint8 if len(levels) <= 255 else np.int32), raw)
     return Attribute(name=name, kind=kind, levels=tuple(levels), codes=codes, n_missing=n_missing)
 
 
@@ -150,10 +164,11 @@ def encode_attributes(
     n = len(df)
     for col in columns:
         s = df[col]
+        raw_levels = None
         if isinstance(s.dtype, pd.CategoricalDtype):
-            cc = s.cat.codes.to_numpy()
-            n_nonmiss = int((cc >= 0).sum())
-            nu = int((np.bincount(cc[cc >= 0], minlength=len(s.cat.categories)) > 0).sum())
+            raw_levels = _raw_levels(s)
+            n_nonmiss = n - raw_levels[3]
+            nu = int((raw_levels[2] > 0).sum())
         else:
             n_nonmiss = int(s.notna().sum())
             nu = int(s.nunique(dropna=True))
@@ -187,8 +202,8 @@ def encode_attributes(
         if nu > max_levels:
             skipped[col] = f"{nu} distinct values, more than max_levels={max_levels}; bin or group it first"
             continue
-        attrs.append(_categorical(col, s, "category"))
-    del n, explicit
+        attrs.append(_categorical(col, s, "category", raw_levels))
+    del explicit
     return attrs, skipped
 
 

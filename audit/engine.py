@@ -323,6 +323,9 @@ def run(
     note("encoding attributes", 0.1)
     attrs, skipped = encode_attributes(data, cols, explicit=explicit, n_bins=bins, bin_edges=bin_edges,
                                        max_levels=max_levels)
+    if not attrs:
+        why = "; ".join(f"{k}: {v}" for k, v in skipped.items()) or "the table has no other columns"
+        raise AuditInputError(f"no attribute column left to slice by ({why})")
     timings["input"] = time.perf_counter() - t0
     return _audit(out, attrs, skipped, cfg, source or SourceInfo(None, None, None), note, timings, t0, kernel)
 

@@ -216,7 +216,8 @@ def read_outcomes(
     if missing.any():
         raise AuditInputError(f"label column '{label}' has a missing value at {_row(_first_bad(missing))}")
     ycodes, ytext_u = _canonical_codes(ys)
-    classes = sorted(set(ytext_u[np.unique(ycodes)].tolist()))
+    present = np.bincount(ycodes[ycodes >= 0], minlength=len(ytext_u)) > 0
+    classes = sorted(set(ytext_u[np.flatnonzero(present)].tolist()))
     if len(classes) != 2:
         shown = ", ".join(classes[:5]) + (", ..." if len(classes) > 5 else "")
         raise AuditInputError(

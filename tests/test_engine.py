@@ -160,6 +160,12 @@ def test_bad_settings(kw, msg):
         audit.run(random_table(n=200), label="y", score="p", **kw)
 
 
+def test_no_attribute_left_is_an_error():
+    df = pd.DataFrame({"y": [0, 1] * 50, "p": np.linspace(0, 1, 100), "id": [f"x{i}" for i in range(100)]})
+    with pytest.raises(AuditInputError, match=r"no attribute column left to slice by \(id: looks like an identifier"):
+        audit.run(df, label="y", score="p")
+
+
 def test_mean_metric_needs_score():
     df = random_table(n=200).assign(yhat=lambda d: (d["p"] > 0.5).astype(int)).drop(columns="p")
     with pytest.raises(AuditInputError, match=r"metric 'log_loss' needs a probability column"):
