@@ -123,35 +123,6 @@ def tally_numpy(codes, cards, cell, ll=None, br=None, *, families, n_classes=2) 
 if numba is not None:
 
     @njit(parallel=True, cache=True, nogil=True)
-    def _kernel(ct, cell, ll, br, fa, fb, cb, off, total, kk, nth):  # pragma: no cover - compiled
-        # One record of kk counts and 4 sums per slice, kept together so an update touches
-        # one cache line; counts are held as float64, exact below 2**53.
-        n = ct.shape[0]
-        nf = fa.shape[0]
-        width = kk + 4
-        acc = np.zeros((nth, total, width), dtype=np.float64)
-        chunk = (n + nth - 1) // nth
-        for t in prange(nth):
-            lo = t * chunk
-            hi = min(n, lo + chunk)
-            o = acc[t]
-            for r in range(lo, hi):
-                row = ct[r]
-                ce = cell[r]
-                a = ll[r]
-                b = br[r]
-                a2 = a * a
-                b2 = b * b
-                for k in range(nf):
-                    idx = off[k] + np.int64(row[fa[k]]) * cb[k] + row[fb[k]]
-                    o[idx, ce] += 1.0
-                    o[idx, kk] += a
-                    o[idx, kk + 1] += a2
-                    o[idx, kk + 2] += b
-                    o[idx, kk + 3] += b2
-        return acc.sum(axis=0)
-
-    @njit(parallel=True, cache=True, nogil=True)
     def _group_kernel(cm, cell, ll, br, members, radix, n_members, ga, gb, gcb, off, total, kk, nth):  # pragma: no cover
         # cm is attributes × rows. Each row's group codes are built on the fly (mixed radix of
         # the member attributes), then one record per pair of groups is updated.
@@ -238,23 +209,8 @@ def _grouped_pairs(codes, cards, cell, ll, br, pairs, n_classes, limit) -> Tally
     where = {a: gi for gi, g in enumerate(groups) for a in g}
     gcards = [int(np.prod([cards[a] for a in g])) for g in groups]
     gpairs = [(i, j) for i in range(len(groups)) for j in range(i + 1, len(groups))]
-    width = max(len(g) for g in groups)
-    members = np.zeros((len(groups), width), dtype=np.int64)
-    radix = np.ones((len(groups), width), dtype=np.int64)
-    for q, g in enumerate(groups):
-        members[q, :len(g)] = g
-        radix[q, :len(g)] = [cards[a] for a in g]
-    n_members = np.array([len(g) for g in groups], dtype=np.int64)
+    acc = _run_group_kernel(codes, cards, cell, ll, br, groups, gcards, gpairs, n_classes)
     gshapes, goffsets = _layout(gpairs, gcards)
-    ga = np.array([p[0] for p in gpairs], dtype=np.int64)
-    gb = np.array([p[1] for p in gpairs], dtype=np.int64)
-    gcb = np.array([gcards[p[1]] for p in gpairs], dtype=np.int64)
-    cm = column_matrix(codes, cards)
-    if ll is None:
-        ll = br = np.zeros(len(cell))
-    nth = max(1, min(numba.get_num_threads(), 1 + len(cell) // 50_000))
-    acc = _group_kernel(cm, cell.astype(np.int8, copy=False), ll, br, members, radix, n_members, ga, gb, gcb,
-                        goffsets[:-1].copy(), int(goffsets[-1]), kk, nth)
     gt = Tally(tuple(gpairs), gshapes, goffsets, None, None, n_classes)
     shapes, offsets = _layout(pairs, cards)
     out = np.zeros((int(offsets[-1]), kk + N_SUMS))
@@ -308,20 +264,39 @@ def _from_pairs(pt: Tally, families, cards) -> Tally:
 
 
 def _compiled(codes, cards, cell, ll, br, families, n_classes) -> Tally:
+    """Every family through the group kernel, each attribute its own group.
+
+    A constant group with no members (code 0) at index ``len(codes)`` turns singles and the
+    whole table into pairs (attribute, constant), so the kernel has one branch-free update.
+    """
+    n_attr = len(codes)
+    groups = [[a] for a in range(n_attr)] + [[]]
+    gcards = list(cards) + [1]
+    fams = [((f[0] if len(f) > 0 else n_attr), (f[1] if len(f) > 1 else n_attr)) for f in families]
+    acc = _run_group_kernel(codes, cards, cell, ll, br, groups, gcards, fams, n_classes)
     kk = n_classes * n_classes
     shapes, offsets = _layout(families, cards)
-    n_attr = len(codes)
-    # A constant all-zero column at index n_attr turns singles and the whole table into
-    # pairs (attribute, constant), so the kernel has a single branch-free update.
-    fa = np.array([f[0] if len(f) > 0 else n_attr for f in families], dtype=np.int64)
-    fb = np.array([f[1] if len(f) > 1 else n_attr for f in families], dtype=np.int64)
-    cb = np.array([cards[f[1]] if len(f) > 1 else 1 for f in families], dtype=np.int64)
-    ct = code_matrix(list(codes) + [np.zeros(len(cell), dtype=np.int32)], list(cards) + [1])
+    return Tally(tuple(families), shapes, offsets, acc[:, :kk].astype(np.int64), np.ascontiguousarray(acc[:, kk:]),
+                 n_classes)
+
+
+def _run_group_kernel(codes, cards, cell, ll, br, groups, gcards, gpairs, n_classes) -> np.ndarray:
+    """One pass over the rows; returns the (cells × (K² + 4)) accumulator of the group pairs."""
+    kk = n_classes * n_classes
+    width = max(1, max(len(g) for g in groups))
+    members = np.zeros((len(groups), width), dtype=np.int64)
+    radix = np.ones((len(groups), width), dtype=np.int64)
+    for q, g in enumerate(groups):
+        members[q, :len(g)] = g
+        radix[q, :len(g)] = [cards[a] for a in g]
+    n_members = np.array([len(g) for g in groups], dtype=np.int64)
+    _, goffsets = _layout(gpairs, gcards)
+    ga = np.array([p[0] for p in gpairs], dtype=np.int64)
+    gb = np.array([p[1] for p in gpairs], dtype=np.int64)
+    gcb = np.array([gcards[p[1]] for p in gpairs], dtype=np.int64)
+    cm = column_matrix(codes, cards) if codes else np.zeros((1, len(cell)), dtype=np.uint8)
     if ll is None:
         ll = br = np.zeros(len(cell))
     nth = max(1, min(numba.get_num_threads(), 1 + len(cell) // 50_000))
-    acc = _kernel(ct, cell.astype(np.int8, copy=False), ll, br, fa, fb, cb, offsets[:-1].copy(),
-                  int(offsets[-1]), kk, nth)
-    c = acc[:, :kk].astype(np.int64)
-    s = np.ascontiguousarray(acc[:, kk:])
-    return Tally(tuple(families), shapes, offsets, c, s, n_classes)
+    return _group_kernel(cm, cell.astype(np.int8, copy=False), ll, br, members, radix, n_members, ga, gb, gcb,
+                         goffsets[:-1].copy(), int(goffsets[-1]), kk, nth)
