@@ -91,6 +91,8 @@ def _categorical(name: str, s: pd.Series, kind: str, raw_levels=None) -> Attribu
     remap = np.array([pos.get(t, -1) for t in text] + [len(order) if n_missing else -1], dtype=np.int32)
     if n_missing:
         codes = np.take(remap, raw, mode="wrap")
+    elif np.array_equal(remap[:-1], np.arange(len(text))) and raw.dtype.itemsize == 1:
+        codes = raw.view(np.uint8)  # already in level order: reuse the column's own codes, no copy
     else:
         codes = np.take(remap[:-1].astype(np.uint8 if len(levels) <= 255 else np.int32), raw)
     return Attribute(name=name, kind=kind, levels=tuple(levels), codes=codes, n_missing=n_missing)

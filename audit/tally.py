@@ -123,39 +123,51 @@ def tally_numpy(codes, cards, cell, ll=None, br=None, *, families, n_classes=2) 
 if numba is not None:
 
     @njit(parallel=True, cache=True, nogil=True)
-    def _group_kernel(cm, cell, ll, br, members, radix, n_members, ga, gb, gcb, off, total, kk, nth):  # pragma: no cover
-        # cm is attributes × rows. Each row's group codes are built on the fly (mixed radix of
-        # the member attributes), then one record per pair of groups is updated.
-        n = cm.shape[1]
+    def _group_codes(cm, members, radix, n_members, nth):  # pragma: no cover - compiled
+        # rows × groups matrix of group codes (mixed radix of each group's member attributes)
+        n = cm[0].shape[0]
         ng = members.shape[0]
+        out = np.zeros((n, ng), dtype=np.int32)
+        chunk = (n + nth - 1) // nth
+        for t in prange(nth):
+            lo = t * chunk
+            hi = min(n, lo + chunk)
+            for q in range(ng):
+                for m in range(n_members[q]):
+                    col = cm[members[q, m]]
+                    rad = radix[q, m]
+                    for r in range(lo, hi):
+                        out[r, q] = out[r, q] * rad + col[r]
+        return out
+
+    @njit(parallel=True, cache=True, nogil=True)
+    def _group_kernel(gt, cell, ll, br, ga, gb, gcb, off, total, kk, nth):  # pragma: no cover - compiled
+        # One record per slice of each group pair: kk counts then Σll, Σll², Σbr, Σbr², kept
+        # together so an update touches one cache line; counts are float64, exact below 2**53.
+        n = gt.shape[0]
         nf = ga.shape[0]
         width = kk + 4
-        acc = np.zeros((nth, total, width), dtype=np.float64)
+        acc = np.zeros((nth, total * width), dtype=np.float64)
         chunk = (n + nth - 1) // nth
         for t in prange(nth):
             lo = t * chunk
             hi = min(n, lo + chunk)
             o = acc[t]
-            g = np.zeros(ng, dtype=np.int64)
             for r in range(lo, hi):
-                for q in range(ng):
-                    v = np.int64(0)
-                    for m in range(n_members[q]):
-                        v = v * radix[q, m] + cm[members[q, m], r]
-                    g[q] = v
+                row = gt[r]
                 ce = cell[r]
                 a = ll[r]
                 b = br[r]
                 a2 = a * a
                 b2 = b * b
                 for k in range(nf):
-                    idx = off[k] + g[ga[k]] * gcb[k] + g[gb[k]]
-                    o[idx, ce] += 1.0
-                    o[idx, kk] += a
-                    o[idx, kk + 1] += a2
-                    o[idx, kk + 2] += b
-                    o[idx, kk + 3] += b2
-        return acc.sum(axis=0)
+                    base = (off[k] + row[ga[k]] * gcb[k] + row[gb[k]]) * width
+                    o[base + ce] += 1.0
+                    o[base + kk] += a
+                    o[base + kk + 1] += a2
+                    o[base + kk + 2] += b
+                    o[base + kk + 3] += b2
+        return acc.sum(axis=0).reshape(total, width)
 
 
 def tally(codes, cards, cell, ll=None, br=None, *, families, n_classes=2, kernel="auto",
@@ -294,9 +306,11 @@ def _run_group_kernel(codes, cards, cell, ll, br, groups, gcards, gpairs, n_clas
     ga = np.array([p[0] for p in gpairs], dtype=np.int64)
     gb = np.array([p[1] for p in gpairs], dtype=np.int64)
     gcb = np.array([gcards[p[1]] for p in gpairs], dtype=np.int64)
-    cm = column_matrix(codes, cards) if codes else np.zeros((1, len(cell)), dtype=np.uint8)
+    dt = np.uint8 if max(cards, default=1) <= 255 else np.int32
+    cm = tuple(c.astype(dt, copy=False) for c in codes) or (np.zeros(len(cell), dtype=np.uint8),)
     if ll is None:
         ll = br = np.zeros(len(cell))
     nth = max(1, min(numba.get_num_threads(), 1 + len(cell) // 50_000))
-    return _group_kernel(cm, cell.astype(np.int8, copy=False), ll, br, members, radix, n_members, ga, gb, gcb,
-                         goffsets[:-1].copy(), int(goffsets[-1]), kk, nth)
+    gt = _group_codes(cm, members, radix, n_members, nth)
+    return _group_kernel(gt, cell.astype(np.int8, copy=False), ll, br, ga, gb, gcb, goffsets[:-1].copy(),
+                         int(goffsets[-1]), kk, nth)
