@@ -14,6 +14,7 @@ import numpy as np
 import pandas as pd
 
 from .errors import AuditInputError
+from .tally import small_histogram
 
 MISSING = "(missing)"
 OUT_OF_RANGE = "(out of range)"
@@ -74,7 +75,7 @@ def _raw_levels(s: pd.Series):
     # Viewing the signed codes as unsigned puts -1 (missing) in the last bin of the histogram.
     unsigned = raw.view(np.dtype(f"u{raw.dtype.itemsize}"))
     if raw.dtype.itemsize <= 2:
-        hist = np.bincount(unsigned, minlength=1 << (8 * raw.dtype.itemsize))
+        hist = small_histogram(unsigned, 1 << (8 * raw.dtype.itemsize))
         counts, n_missing = hist[:len(text)], int(hist[-1])
     else:
         n_missing = int((raw < 0).sum())

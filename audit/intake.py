@@ -78,6 +78,13 @@ def _canonical_column(s: pd.Series) -> np.ndarray:
 
 def _canonical_codes(s: pd.Series) -> tuple[np.ndarray, np.ndarray]:
     """Codes into an array of canonical texts (the last entry, '', stands for missing)."""
+    if pd.api.types.is_integer_dtype(s.dtype) and not isinstance(s.dtype, pd.CategoricalDtype) and len(s):
+        v = s.to_numpy()
+        lo, hi = int(v.min()), int(v.max())
+        if hi - lo < 1024:  # small integer labels: offsets are the codes, no hashing
+            codes = (v - lo).astype(np.intp)
+            text = np.array([str(lo + i) for i in range(hi - lo + 1)] + [""], dtype=object)
+            return codes, text
     codes, uniques = pd.factorize(s, use_na_sentinel=True)
     text = np.array([canonical(u) for u in list(uniques)] + [""], dtype=object)
     return codes, text

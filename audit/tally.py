@@ -29,6 +29,9 @@ try:  # the compiled kernel is optional at import time; numpy is the fallback
 except ImportError:  # pragma: no cover - numba is a declared dependency
     numba = None
 
+    def small_histogram(codes, size):
+        return np.bincount(codes, minlength=size)
+
 #: Probabilities are clipped to [EPS, 1 - EPS] before taking logs.
 EPS = 1e-15
 N_SUMS = 4  # Σ ll, Σ ll², Σ brier, Σ brier²
@@ -122,32 +125,44 @@ def tally_numpy(codes, cards, cell, ll=None, br=None, *, families, n_classes=2) 
 
 if numba is not None:
 
+    @njit(cache=True, nogil=True)
+    def small_histogram(codes, size):  # pragma: no cover - compiled
+        """Counts of each value of a small unsigned integer array (no int64 copy, unlike np.bincount)."""
+        out = np.zeros(size, dtype=np.int64)
+        for i in range(codes.shape[0]):
+            out[codes[i]] += 1
+        return out
+
     @njit(parallel=True, cache=True, nogil=True)
     def _group_codes(cm, members, radix, n_members, nth):  # pragma: no cover - compiled
-        # rows × groups matrix of group codes (mixed radix of each group's member attributes)
+        # rows × groups matrix of group codes (mixed radix of each group's member attributes),
+        # filled in blocks of rows small enough to stay in cache while every member is added.
         n = cm[0].shape[0]
         ng = members.shape[0]
         out = np.zeros((n, ng), dtype=np.int32)
         chunk = (n + nth - 1) // nth
+        block = 2048
         for t in prange(nth):
             lo = t * chunk
             hi = min(n, lo + chunk)
-            for q in range(ng):
-                for m in range(n_members[q]):
-                    col = cm[members[q, m]]
-                    rad = radix[q, m]
-                    for r in range(lo, hi):
-                        out[r, q] = out[r, q] * rad + col[r]
+            for b0 in range(lo, hi, block):
+                b1 = min(hi, b0 + block)
+                for q in range(ng):
+                    for m in range(n_members[q]):
+                        col = cm[members[q, m]]
+                        rad = radix[q, m]
+                        for r in range(b0, b1):
+                            out[r, q] = out[r, q] * rad + col[r]
         return out
 
     @njit(parallel=True, cache=True, nogil=True)
-    def _group_kernel(gt, cell, ll, br, ga, gb, gcb, off, total, kk, nth):  # pragma: no cover - compiled
-        # One record per slice of each group pair: kk counts then Σll, Σll², Σbr, Σbr², kept
+    def _binary_kernel(gt, cell, ll, br, ga, gb, gcb, off, total, nth):  # pragma: no cover - compiled
+        # One record per slice of each group pair: 4 cell counts then Σll, Σll², Σbr, Σbr², kept
         # together so an update touches one cache line; counts are float64, exact below 2**53.
+        # The record width is fixed at compile time (about 1.5x faster than a run-time width).
         n = gt.shape[0]
         nf = ga.shape[0]
-        width = kk + 4
-        acc = np.zeros((nth, total * width), dtype=np.float64)
+        acc = np.zeros((nth, total * 8), dtype=np.float64)
         chunk = (n + nth - 1) // nth
         for t in prange(nth):
             lo = t * chunk
@@ -161,22 +176,23 @@ if numba is not None:
                 a2 = a * a
                 b2 = b * b
                 for k in range(nf):
-                    base = (off[k] + row[ga[k]] * gcb[k] + row[gb[k]]) * width
+                    base = (off[k] + row[ga[k]] * gcb[k] + row[gb[k]]) * 8
                     o[base + ce] += 1.0
-                    o[base + kk] += a
-                    o[base + kk + 1] += a2
-                    o[base + kk + 2] += b
-                    o[base + kk + 3] += b2
-        return acc.sum(axis=0).reshape(total, width)
+                    o[base + 4] += a
+                    o[base + 5] += a2
+                    o[base + 6] += b
+                    o[base + 7] += b2
+        return acc
 
 
 def tally(codes, cards, cell, ll=None, br=None, *, families, n_classes=2, kernel="auto",
           group_limit: int = 64) -> Tally:
     """Tally every family in ``families`` (tuples of at most two attribute indices).
 
-    ``kernel`` is ``"compiled"``, ``"numpy"`` or ``"auto"`` (compiled when numba imports).
+    ``kernel`` is ``"compiled"``, ``"numpy"`` or ``"auto"`` (compiled when numba imports; the
+    compiled kernel has the binary record layout, other class counts use numpy).
     """
-    if kernel == "numpy" or numba is None or any(len(f) > 2 for f in families):
+    if kernel == "numpy" or numba is None or n_classes != 2 or any(len(f) > 2 for f in families):
         return tally_numpy(codes, cards, cell, ll, br, families=families, n_classes=n_classes)
     families = tuple(families)
     pairs = tuple(f for f in families if len(f) == 2)
@@ -312,5 +328,7 @@ def _run_group_kernel(codes, cards, cell, ll, br, groups, gcards, gpairs, n_clas
         ll = br = np.zeros(len(cell))
     nth = max(1, min(numba.get_num_threads(), 1 + len(cell) // 50_000))
     gt = _group_codes(cm, members, radix, n_members, nth)
-    return _group_kernel(gt, cell.astype(np.int8, copy=False), ll, br, ga, gb, gcb, goffsets[:-1].copy(),
-                         int(goffsets[-1]), kk, nth)
+    total = int(goffsets[-1])
+    c8 = cell.astype(np.int8, copy=False)
+    acc = _binary_kernel(gt, c8, ll, br, ga, gb, gcb, goffsets[:-1].copy(), total, nth)
+    return acc.sum(axis=0).reshape(total, kk + 4)
