@@ -6,12 +6,14 @@ the estimate is undefined.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import lru_cache
 from typing import Callable
 
 import numpy as np
 from scipy import stats
 
 
+@lru_cache(maxsize=64)
 def _z(level: float) -> float:
     return float(stats.norm.ppf(0.5 + level / 2.0))
 
