@@ -422,16 +422,18 @@ def _audit(out: Outcomes, attrs: list[Attribute], skipped, cfg: AuditConfig, sou
     few_metric = support < mms
     rest_small = (rc["n"] < ms) | (rsupport < mms)
     undefined = np.isnan(mb["metric_value"]) | np.isnan(mb["rest_value"]) | np.isnan(mb["p_value"])
-    reason = np.where(undefined, "metric undefined in the slice or the rest", reason)
+    reason[undefined] = "metric undefined in the slice or the rest"
     status = np.where(undefined, "undefined", status)
-    reason = np.where(rest_small, f"the rest has fewer than {ms} rows or {mms} {sup_title}", reason)
+    reason[rest_small] = f"the rest has fewer than {ms} rows or {mms} {sup_title}"
     status = np.where(rest_small, "no_rest", status)
-    reason = np.where(few_metric, [f"{int(s)} {sup_title} < {mms}" for s in support], reason)
+    idx_m = np.flatnonzero(few_metric)
+    reason[idx_m] = [f"{int(v)} {sup_title} < {mms}" for v in support[idx_m]]
     status = np.where(few_metric, "below_support", status)
-    reason = np.where(few_rows, [f"{int(s)} rows < {ms}" for s in c["n"]], reason)
+    idx_r = np.flatnonzero(few_rows)
+    reason[idx_r] = [f"{int(v)} rows < {ms}" for v in c["n"][idx_r]]
     status = np.where(few_rows, "below_support", status)
     status = np.where(order == 0, "whole_table", status)
-    reason = np.where(order == 0, "the reference population", reason)
+    reason[order == 0] = "the reference population"
     tested = status == "tested"
     p = np.where(tested, mb["p_value"], np.nan)
     cols["test"] = np.where(tested, mb["test"], "")

@@ -39,6 +39,8 @@ N_SUMS = 4  # Σ ll, Σ ll², Σ brier, Σ brier²
 
 def row_losses(y: np.ndarray, score: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Per-row log loss (natural log, clipped at ``EPS``) and Brier score."""
+    if numba is not None and len(y) > 100_000:
+        return _losses(y.astype(np.int8, copy=False), np.asarray(score, dtype=np.float64), EPS)
     p = np.clip(score, EPS, 1.0 - EPS)
     yb = y.astype(bool)
     ll = -np.log(np.where(yb, p, 1.0 - p))
@@ -124,6 +126,18 @@ def tally_numpy(codes, cards, cell, ll=None, br=None, *, families, n_classes=2) 
 
 
 if numba is not None:
+
+    @njit(parallel=True, cache=True, nogil=True)
+    def _losses(y, score, eps):  # pragma: no cover - compiled
+        n = y.shape[0]
+        ll = np.empty(n)
+        br = np.empty(n)
+        for i in prange(n):
+            p = min(max(score[i], eps), 1.0 - eps)
+            ll[i] = -np.log(p) if y[i] == 1 else -np.log(1.0 - p)
+            d = score[i] - y[i]
+            br[i] = d * d
+        return ll, br
 
     @njit(parallel=True, cache=True, nogil=True)
     def _histogram(codes, size, nth):  # pragma: no cover - compiled

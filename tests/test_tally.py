@@ -68,3 +68,14 @@ def test_log_loss_sum_matches_sklearn(rows):
     *_, y, p = rows
     ll, br = row_losses(y, p)
     assert ll.mean() == pytest.approx(log_loss(y, p), rel=1e-12)
+
+
+def test_compiled_losses_equal_numpy_losses():
+    # The compiled per-row losses (used above 100,000 rows) against the numpy expression.
+    rng = np.random.default_rng(12)
+    y = rng.integers(0, 2, 200_000).astype(np.int8)
+    p = np.r_[rng.random(199_998), 0.0, 1.0]
+    ll, br = row_losses(y, p)
+    q = np.clip(p, 1e-15, 1 - 1e-15)
+    np.testing.assert_allclose(ll, -np.log(np.where(y == 1, q, 1 - q)), rtol=1e-15)
+    np.testing.assert_allclose(br, (p - y) ** 2, rtol=1e-15)
