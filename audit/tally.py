@@ -155,29 +155,6 @@ if numba is not None:
         return _histogram(codes, size, max(1, min(numba.get_num_threads(), 1 + len(codes) // 100_000)))
 
     @njit(parallel=True, cache=True, nogil=True)
-    def _group_codes(cm, members, radix, n_members, out, nth):  # pragma: no cover - compiled
-        # rows × groups matrix of group codes (mixed radix of each group's member attributes),
-        # filled in blocks of rows small enough to stay in cache while every member is added.
-        n = cm[0].shape[0]
-        ng = members.shape[0]
-        chunk = (n + nth - 1) // nth
-        block = 2048
-        for t in prange(nth):
-            lo = t * chunk
-            hi = min(n, lo + chunk)
-            for b0 in range(lo, hi, block):
-                b1 = min(hi, b0 + block)
-                for q in range(ng):
-                    for r in range(b0, b1):
-                        out[r, q] = 0
-                    for m in range(n_members[q]):
-                        col = cm[members[q, m]]
-                        rad = radix[q, m]
-                        for r in range(b0, b1):
-                            out[r, q] = out[r, q] * rad + col[r]
-        return out
-
-    @njit(parallel=True, cache=True, nogil=True)
     def _binary_kernel(gt, cell, ll, br, ga, gb, gcb, off, total, nth):  # pragma: no cover - compiled
         # One record per slice of each group pair: 4 cell counts then Σll, Σll², Σbr, Σbr², kept
         # together so an update touches one cache line; counts are float64, exact below 2**53.
@@ -333,25 +310,25 @@ def _compiled(codes, cards, cell, ll, br, families, n_classes) -> Tally:
 def _run_group_kernel(codes, cards, cell, ll, br, groups, gcards, gpairs, n_classes) -> np.ndarray:
     """One pass over the rows; returns the (cells × (K² + 4)) accumulator of the group pairs."""
     kk = n_classes * n_classes
-    width = max(1, max(len(g) for g in groups))
-    members = np.zeros((len(groups), width), dtype=np.int64)
-    radix = np.ones((len(groups), width), dtype=np.int64)
-    for q, g in enumerate(groups):
-        members[q, :len(g)] = g
-        radix[q, :len(g)] = [cards[a] for a in g]
-    n_members = np.array([len(g) for g in groups], dtype=np.int64)
     _, goffsets = _layout(gpairs, gcards)
     ga = np.array([p[0] for p in gpairs], dtype=np.int64)
     gb = np.array([p[1] for p in gpairs], dtype=np.int64)
     gcb = np.array([gcards[p[1]] for p in gpairs], dtype=np.int64)
-    dt = np.uint8 if max(cards, default=1) <= 255 else np.int32
-    cm = tuple(c.astype(dt, copy=False) for c in codes) or (np.zeros(len(cell), dtype=np.uint8),)
     if ll is None:
         ll = br = np.zeros(len(cell))
     nth = max(1, min(numba.get_num_threads(), 1 + len(cell) // 50_000))
-    # Group codes in the narrowest type that holds them (less memory to stream through).
-    gdt = np.uint16 if max(gcards) <= 65535 else np.int32
-    gt = _group_codes(cm, members, radix, n_members, np.empty((len(cell), len(groups)), dtype=gdt), nth)
+    # Rows × groups matrix of group codes (mixed radix of the members), in the narrowest type.
+    gdt = np.uint16 if max(gcards) <= 65535 else np.int64
+    gt = np.empty((len(cell), len(groups)), dtype=gdt)
+    for q, g in enumerate(groups):
+        if not g:
+            gt[:, q] = 0
+            continue
+        v = codes[g[0]].astype(gdt)
+        for a in g[1:]:
+            v *= gdt(cards[a])
+            v += codes[a].astype(gdt, copy=False)
+        gt[:, q] = v
     total = int(goffsets[-1])
     c8 = cell.astype(np.int8, copy=False)
     acc = _binary_kernel(gt, c8, ll, br, ga, gb, gcb, goffsets[:-1].copy(), total, nth)
