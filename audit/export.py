@@ -22,6 +22,44 @@ from .tally import EPS
 
 _FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
 
+CAUTION = ("A flag is a statistical signal that a slice's metric differs from the rest of the rows by more "
+           "than chance would explain. It is not a finding of discrimination, unfairness or unlawful treatment, "
+           "and it is not a legal conclusion. Obligations differ by jurisdiction and sector; decisions on what "
+           "a flag means and what to do about it belong to the organisation's compliance function and "
+           "qualified legal counsel, under applicable law.")
+
+
+def limitations(result) -> list[tuple[str, str]]:
+    """What this audit cannot show, as (title, text) pairs; the report and summary.json share them."""
+    cfg = result.config
+    corr = CORRECTIONS[cfg.correction].title
+    return [
+        ("Small slices and power",
+         f"A slice needs {cfg.min_support} rows to be tested; smaller slices are listed but not judged. A slice that "
+         "is tested but not flagged may still be worse: with few rows a real gap can hide inside the interval. "
+         "Absence of a flag is not evidence of equal performance."),
+        ("Overlapping slices",
+         "Single-attribute slices and pairs share rows, so one underlying problem can raise many flags (a pair and "
+         "both of its parts). Read flags as pointers to a region of the data, not as separate findings."),
+        ("What the correction covers",
+         f"{corr} accounts for the {result.family_size} tests run here on one metric. It does not cover other "
+         "metrics examined, other audits of the same model, slices of three or more attributes, or choices made "
+         "after seeing the results."),
+        ("Label quality",
+         "Every metric assumes the recorded outcome is correct. If outcomes are missing, delayed or recorded "
+         "differently for some groups, the audit measures that difference as well."),
+        ("Proxies",
+         "Attributes not in the table can still act through the ones that are (for instance location standing in "
+         "for an unrecorded characteristic). An attribute's absence from the flags does not show it had no "
+         "influence."),
+        ("Association, not causation",
+         "A flag shows that the model performs differently on a slice; it does not show why, and it does not show "
+         "that the attribute causes the difference."),
+        ("Threshold and sample",
+         "Results hold for this table and this decision threshold; another period, population or threshold can "
+         "give other results."),
+    ]
+
 
 def _is_number(text: str) -> bool:
     try:
@@ -138,6 +176,8 @@ def summary(result, *, created: str | None = None) -> dict[str, Any]:
                    "undefined": counts.get("undefined", 0), "flagged": counts["flagged"],
                    "family_size": result.family_size},
         "flagged": top,
+        "limitations": [{"title": t, "text": x} for t, x in limitations(result)],
+        "cautions": CAUTION,
         "environment": result.environment,
     }
     if result.fairness is not None:

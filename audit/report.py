@@ -31,11 +31,7 @@ SECTIONS = [
     ("reproduce", "9. Reproducing this audit"),
 ]
 
-CAUTION = ("A flag is a statistical signal that a slice's metric differs from the rest of the rows by more "
-           "than chance would explain. It is not a finding of discrimination, unfairness or unlawful treatment, "
-           "and it is not a legal conclusion. Obligations differ by jurisdiction and sector; decisions on what "
-           "a flag means and what to do about it belong to the organisation's compliance function and "
-           "qualified legal counsel, under applicable law.")
+from .export import CAUTION, limitations  # noqa: E402  (wording shared with summary.json)
 
 CSS = """
 :root { --ink:#1d3557; --flag:#d1651f; --muted:#5c6470; --rule:#d5dae1; }
@@ -213,26 +209,7 @@ def build_html(result, *, command: str | None = None, created: str | None = None
                                           "(<code>--protected</code>), so no group-fairness criteria were checked.</p>"))
 
     # 6. limits
-    limits = [
-        f"<b>Small slices and power.</b> A slice needs {cfg.min_support} rows to be tested; smaller slices are listed "
-        "but not judged. A slice that is tested but not flagged may still be worse: with few rows a real gap can hide "
-        "inside the interval. Absence of a flag is not evidence of equal performance.",
-        "<b>Overlapping slices.</b> Single-attribute slices and pairs share rows, so one underlying problem can raise "
-        "many flags (a pair and both of its parts). Read flags as pointers to a region of the data, not as separate "
-        "findings.",
-        f"<b>What the correction covers.</b> {e(notes['correction']['title'])} accounts for the {result.family_size} "
-        "tests run here on one metric. It does not cover other metrics examined, other audits of the same model, "
-        "slices of three or more attributes, or choices made after seeing the results.",
-        "<b>Label quality.</b> Every metric assumes the recorded outcome is correct. If outcomes are missing, delayed "
-        "or recorded differently for some groups, the audit measures that difference as well.",
-        "<b>Proxies.</b> Attributes not in the table can still act through the ones that are (for instance location "
-        "standing in for an unrecorded characteristic). An attribute's absence from the flags does not show it had "
-        "no influence.",
-        "<b>Association, not causation.</b> A flag shows that the model performs differently on a slice; it does not "
-        "show why, and it does not show that the attribute causes the difference.",
-        "<b>Threshold and sample.</b> Results hold for this table and this decision threshold; another period, "
-        "population or threshold can give other results.",
-    ]
+    limits = [f"<b>{e(t)}.</b> {e(x)}" for t, x in limitations(result)]
     parts.append(_section("limits", "<ul>" + "".join(f"<li>{x}</li>" for x in limits) + "</ul>"))
 
     # 7. cautions
