@@ -192,7 +192,8 @@ def selection_rates(fair_groups: pd.DataFrame, attribute: str, *, width: int | N
         error_y={"type": "data", "array": g["selection_rate_high"] - g["selection_rate"],
                  "arrayminus": g["selection_rate"] - g["selection_rate_low"], "color": PALETTE["ink"]},
         text=[f"{v:.1%}" + (" ▼ below 4/5" if b else "") for v, b in zip(g["selection_rate"], below)],
-        textposition="outside", hovertemplate="%{x}<br>selection rate %{y:.3f}<extra></extra>", showlegend=False))
+        textposition="inside", insidetextanchor="middle", textfont={"color": "white"},
+        hovertemplate="%{x}<br>selection rate %{y:.3f}<extra></extra>", showlegend=False))
     ref = g[g["is_reference"]]
     if len(ref):
         r = float(ref["selection_rate"].iloc[0])
