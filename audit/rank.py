@@ -5,7 +5,8 @@ the rest of the rows. Tested slices are ranked worst first by the conservative e
 interval of (slice − rest) in the bad direction: the lower end for a metric where higher
 is worse, minus the upper end otherwise. A large but noisy gap in a tiny slice has a wide
 interval whose conservative end is near zero, so it cannot outrank a solid gap. Ties are
-broken by the raw p-value, then by slice name, so the ranking is deterministic.
+broken by the raw p-value, then by the slice's position in the table (input column order, then
+level order), so the ranking is deterministic.
 """
 from __future__ import annotations
 
@@ -29,12 +30,13 @@ def flag_and_rank(df: pd.DataFrame, *, alpha: float, higher_is_worse: bool) -> p
                   higher_is_worse=higher_is_worse)
     sev = np.where(tested, sev, np.nan)
     idx = np.flatnonzero(tested)
-    order = np.lexsort((df["slice"].to_numpy()[idx].astype(str), df["p_value"].to_numpy(dtype=float)[idx], -sev[idx]))
+    order = np.lexsort((idx, df["p_value"].to_numpy(dtype=float)[idx], -sev[idx]))
     rank = np.full(len(df), np.nan)
     rank[idx[order]] = np.arange(1, len(idx) + 1)
-    out = df.copy()
+    out = df  # the engine owns this frame; columns are added in place
     out["worse_than_rest"] = np.where(tested, worse, False)
     out["flagged"] = flagged
     out["severity"] = sev
-    out["rank"] = pd.array(np.where(np.isnan(rank), pd.NA, rank), dtype="Int64")
+    missing = np.isnan(rank)
+    out["rank"] = pd.arrays.IntegerArray(np.where(missing, 0, rank).astype(np.int64), missing)
     return out
