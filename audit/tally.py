@@ -326,8 +326,8 @@ def _run_group_kernel(codes, cards, cell, ll, br, groups, gcards, gpairs, n_clas
             continue
         v = codes[g[0]].astype(gdt)
         for a in g[1:]:
-            v *= gdt(cards[a])
-            v += codes[a].astype(gdt, copy=False)
+            np.multiply(v, gdt(cards[a]), out=v)
+            np.add(v, codes[a], out=v, casting="unsafe")
         gt[:, q] = v
     total = int(goffsets[-1])
     c8 = cell.astype(np.int8, copy=False)
