@@ -207,10 +207,10 @@ def write_files(out_dir: str, files: dict[str, bytes]) -> list[str]:
     try:
         for name, data in files.items():
             fd, tmp = tempfile.mkstemp(prefix=f".{name}.", suffix=".part", dir=out_dir)
+            temps.append((tmp, os.path.join(out_dir, name)))
             with os.fdopen(fd, "wb") as fh:
                 fh.write(data)
             os.chmod(tmp, 0o666 & ~_umask())
-            temps.append((tmp, os.path.join(out_dir, name)))
     except BaseException:
         for tmp, _ in temps:
             if os.path.exists(tmp):

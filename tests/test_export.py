@@ -1,0 +1,24 @@
+import os
+
+import pytest
+
+from audit.export import neutralise, write_files
+
+
+@pytest.mark.parametrize("cell,expected", [
+    # OWASP CSV injection guidance: leading = + - @ tab CR start a formula.
+    ("=1+1", "'=1+1"), ("+SUM(A1)", "'+SUM(A1)"), ("-2+3", "'-2+3"), ("@cmd", "'@cmd"), ("\tx", "'\tx"),
+    ("\rx", "'\rx"), ("-0.25", "-0.25"), ("-1e-5", "-1e-5"), ("north", "north"), (3.5, 3.5), (-2, -2),
+])
+def test_neutralise(cell, expected):
+    assert neutralise(cell) == expected
+
+
+def test_write_files_is_all_or_nothing(tmp_path):
+    out = tmp_path / "out"
+    written = write_files(str(out), {"a.csv": b"1\n", "b.json": b"{}\n"})
+    assert sorted(os.listdir(out)) == ["a.csv", "b.json"] and len(written) == 2
+
+    with pytest.raises(TypeError):
+        write_files(str(out), {"c.csv": b"x", "d.csv": object()})  # second file cannot be written
+    assert sorted(os.listdir(out)) == ["a.csv", "b.json"]  # nothing half-written, no temp files left
