@@ -10,7 +10,6 @@ import pandas as pd
 import plotly.graph_objects as go
 from scipy import stats
 
-from .encode import MISSING
 
 #: Fissure's palette (blue/orange contrast stays distinct under the common colour-vision deficiencies).
 PALETTE = {
@@ -221,4 +220,4 @@ def error_rate_balance(fair_groups: pd.DataFrame, attribute: str, *, width: int 
 
 
 __all__ = ["PALETTE", "top_slices", "confusion", "pair_heatmap", "noise_band", "worst_pair", "selection_rates",
-           "error_rate_balance", "MISSING"]
+           "error_rate_balance"]

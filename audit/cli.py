@@ -7,9 +7,9 @@ option, exit code 1 means the gate stopped the release.
 from __future__ import annotations
 
 import argparse
-import os
 import shlex
 import sys
+from dataclasses import fields
 from typing import Any, Sequence
 
 from . import __version__
@@ -107,20 +107,14 @@ def build_parser() -> argparse.ArgumentParser:
     return p
 
 
-_OPTION_TO_SETTING = {
-    "label": "label", "pred": "pred", "score": "score", "positive": "positive", "threshold": "threshold",
-    "attributes": "attributes", "bins": "bins", "metric": "metric", "min_support": "min_support",
-    "min_metric_support": "min_metric_support", "alpha": "alpha", "correction": "correction",
-    "interval": "interval", "level": "level", "max_order": "max_order", "auc_max_order": "auc_max_order",
-    "protected": "protected", "favorable": "favorable", "min_group_share": "min_group_share",
-    "model_name": "model_name", "model_version": "model_version", "intended_use": "intended_use",
-}
+#: Settings given as options of the same name (the two mappings are merged separately below).
+_SCALAR_SETTINGS = [f.name for f in fields(AuditConfig) if f.name not in ("bin_edges", "reference")]
 
 
 def settings_from(args: argparse.Namespace) -> dict[str, Any]:
     settings: dict[str, Any] = load_toml(args.config) if args.config else {}
-    for opt, key in _OPTION_TO_SETTING.items():
-        v = getattr(args, opt)
+    for key in _SCALAR_SETTINGS:
+        v = getattr(args, key, None)
         if v is not None:
             settings[key] = v
     if args.bin_edges:

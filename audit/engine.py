@@ -7,7 +7,7 @@ from __future__ import annotations
 
 import platform
 import time
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field, fields, replace
 from typing import Any, Callable, Mapping, Sequence
 
 import numpy as np
@@ -22,19 +22,13 @@ from .encode import Attribute, choose_columns, encode_attributes
 from .errors import AuditInputError
 from .intake import Outcomes, SourceInfo, check_columns, read_outcomes
 from .intervals import INTERVALS, f1_interval, mean_interval, mover_difference, proportion_interval, welch_difference
-from .measure import METRICS, RATE_COLUMNS, count_frame, metric_values
+from .measure import METRICS, RATE_COLUMNS, RATES, count_frame, metric_values
 from .rank import flag_and_rank
 from .tally import plan_families, row_losses, tally
 
 ALL = "(all)"
 Progress = Callable[[str, float], None]
 
-_NUMERATOR_OF = {"accuracy": "correct", "error_rate": "errors", "precision": "tp", "recall": "tp",
-                 "specificity": "tn", "fpr": "fp", "fnr": "fn", "npv": "tn",
-                 "selection_rate": "pred_pos", "base_rate": "actual_pos"}
-_DENOMINATOR_OF = {"accuracy": "n", "error_rate": "n", "precision": "pred_pos", "recall": "actual_pos",
-                   "specificity": "actual_neg", "fpr": "actual_neg", "fnr": "actual_pos", "npv": "pred_neg",
-                   "selection_rate": "n", "base_rate": "n"}
 SUPPORT_TITLES = {"n": "rows", "actual_pos": "actual positives", "actual_neg": "actual negatives",
                   "pred_pos": "predicted positives", "pred_neg": "predicted negatives",
                   "tp_fp_fn": "rows positive in truth or prediction"}
@@ -107,22 +101,20 @@ class AuditResult:
         Columns: ``metric``, ``slice``, ``slice_low``, ``slice_high``, ``rest``, ``rest_low``, ``rest_high``.
         """
         s = self.slice(name)
-        whole = self.slice(ALL)
-        counts = np.array([[int(s["tn"]), int(s["fp"]), int(s["fn"]), int(s["tp"])],
-                           [int(whole["tn"] - s["tn"]), int(whole["fp"] - s["fp"]), int(whole["fn"] - s["fn"]),
-                            int(whole["tp"] - s["tp"])]])
-        c = count_frame(counts)
+        rest = self.rest_counts(name)
+        cells = ("tn", "fp", "fn", "tp")  # the cell order of the tally
+        c = count_frame(np.array([[int(s[k]) for k in cells], [rest[k] for k in cells]]))
         v = metric_values(c, None)
         lvl, meth = self.config.level, self.config.interval
         rows = []
-        for r in RATE_COLUMNS:
-            lo, hi = proportion_interval(c[_NUMERATOR_OF[r]], c[_DENOMINATOR_OF[r]], method=meth, level=lvl)
+        for r, (num, den) in RATES.items():
+            lo, hi = proportion_interval(c[num], c[den], method=meth, level=lvl)
             rows.append((r, v[r][0], lo[0], hi[0], v[r][1], lo[1], hi[1]))
         lo, hi = f1_interval(c["tp"], c["fp"], c["fn"], method=meth, level=lvl)
         rows.append(("f1", v["f1"][0], lo[0], hi[0], v["f1"][1], lo[1], hi[1]))
         out = pd.DataFrame(rows, columns=["metric", "slice", "slice_low", "slice_high", "rest", "rest_low",
                                           "rest_high"])
-        total_errors = int(whole["errors"])
+        total_errors = int(self.slice(ALL)["errors"])
         out.attrs["share_of_errors"] = float(s["errors"] / total_errors) if total_errors else float("nan")
         return out
 
@@ -298,8 +290,7 @@ def run(
     note = progress or (lambda stage, frac: None)
     if not isinstance(data, pd.DataFrame):
         raise AuditInputError(f"data must be a pandas DataFrame; received {type(data).__name__}")
-    unknown = set(extra) - {"protected", "favorable", "reference", "min_group_share", "model_name",
-                            "model_version", "intended_use"}
+    unknown = set(extra) - {f.name for f in fields(AuditConfig)}
     if unknown:
         raise TypeError(f"run() got unexpected keyword argument '{sorted(unknown)[0]}'")
     cfg = AuditConfig(
@@ -388,10 +379,9 @@ def _audit(out: Outcomes, attrs: list[Attribute], skipped, cfg: AuditConfig, sou
         "actual_pos": c["actual_pos"], "pred_pos": c["pred_pos"],
         "tp": c["tp"], "fp": c["fp"], "fn": c["fn"], "tn": c["tn"], "errors": c["errors"],
     }
-    for r in RATE_COLUMNS:
+    for r, (num, den) in RATES.items():
         cols[r] = v[r]
-        cols[f"{r}_low"], cols[f"{r}_high"] = proportion_interval(c[_NUMERATOR_OF[r]], c[_DENOMINATOR_OF[r]],
-                                                                  method=meth, level=lvl)
+        cols[f"{r}_low"], cols[f"{r}_high"] = proportion_interval(c[num], c[den], method=meth, level=lvl)
     cols["f1"] = v["f1"]
     cols["f1_low"], cols["f1_high"] = f1_interval(c["tp"], c["fp"], c["fn"], method=meth, level=lvl)
     cols["f1_neg"], cols["macro_f1"], cols["jaccard"] = v["f1_neg"], v["macro_f1"], v["jaccard"]

@@ -84,8 +84,14 @@ def neutralise(value: Any) -> Any:
 
 
 def slices_csv(result) -> bytes:
-    """``slices.csv`` as bytes: one row per slice, booleans as true/false, NaN as empty."""
-    df = result.slices.copy()
+    """``slices.csv`` as bytes: one row per slice."""
+    return frame_csv(result.slices)
+
+
+def frame_csv(frame: pd.DataFrame) -> bytes:
+    """A table as CSV bytes the way every Fissure export writes it: booleans as true/false, NaN as
+    empty, text cells neutralised against spreadsheet formulas, floats to 10 significant digits."""
+    df = frame.copy()
     for col in df.columns:
         s = df[col]
         if pd.api.types.is_bool_dtype(s):

@@ -17,10 +17,9 @@ References
 """
 from __future__ import annotations
 
-import io
 from dataclasses import dataclass, field
 from fractions import Fraction
-from typing import Any, Sequence
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -30,6 +29,7 @@ from .correct import adjust
 from .encode import MISSING
 from .errors import AuditInputError
 from .intervals import mover_difference, proportion_interval
+from .measure import ratio
 
 CALIBRATION_BINS = 10  # equal-width bins of the predicted probability
 
@@ -49,17 +49,9 @@ class FairnessResult:
     notes: list[str] = field(default_factory=list)
 
     def to_csv(self) -> bytes:
-        from .export import neutralise
+        from .export import frame_csv
 
-        df = self.groups.copy()
-        for col in df.columns:
-            if pd.api.types.is_bool_dtype(df[col]):
-                df[col] = np.where(df[col].to_numpy(), "true", "false")
-            elif pd.api.types.is_object_dtype(df[col]) or pd.api.types.is_string_dtype(df[col]):
-                df[col] = [neutralise(x) for x in df[col].tolist()]
-        buf = io.StringIO()
-        df.to_csv(buf, index=False, na_rep="", lineterminator="\n", float_format="%.10g")
-        return buf.getvalue().encode("utf-8")
+        return frame_csv(self.groups)
 
     def to_summary(self) -> dict[str, Any]:
         recs = []
@@ -161,14 +153,13 @@ def assess(attrs, outcomes, cfg) -> FairnessResult:
         tp, fp, fn, tn, sel, n = tp[keep], fp[keep], fn[keep], tn[keep], sel[keep], n[keep]
         df["share"] = n / n_total
         df["tp"], df["fp"], df["fn"], df["tn"], df["selected"] = tp, fp, fn, tn, sel
-        with np.errstate(invalid="ignore", divide="ignore"):
-            rates = {
-                "base_rate": (tp + fn, n), "selection_rate": (sel, n), "tpr": (tp, tp + fn), "fpr": (fp, fp + tn),
-                "fnr": (fn, tp + fn), "ppv": (tp, tp + fp), "accuracy": (tp + tn, n),
-            }
-            for r, (num, den) in rates.items():
-                df[r] = np.where(den > 0, num / np.maximum(den, 1), np.nan)
-                df[f"{r}_low"], df[f"{r}_high"] = proportion_interval(num, den, method=cfg.interval, level=cfg.level)
+        rates = {
+            "base_rate": (tp + fn, n), "selection_rate": (sel, n), "tpr": (tp, tp + fn), "fpr": (fp, fp + tn),
+            "fnr": (fn, tp + fn), "ppv": (tp, tp + fp), "accuracy": (tp + tn, n),
+        }
+        for r, (num, den) in rates.items():
+            df[r] = ratio(num, den)
+            df[f"{r}_low"], df[f"{r}_high"] = proportion_interval(num, den, method=cfg.interval, level=cfg.level)
         if score is not None:
             ssum = np.bincount(codes, weights=score, minlength=k)[keep]
             df["mean_score"] = ssum / n

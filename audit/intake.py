@@ -70,12 +70,6 @@ def canonical(value: Any) -> str:
     return str(value)
 
 
-def _canonical_column(s: pd.Series) -> np.ndarray:
-    """``canonical`` applied to every value, through the column's distinct values (fast)."""
-    codes, text = _canonical_codes(s)
-    return text[codes]
-
-
 def _canonical_codes(s: pd.Series) -> tuple[np.ndarray, np.ndarray]:
     """Codes into an array of canonical texts (the last entry, '', stands for missing)."""
     if pd.api.types.is_integer_dtype(s.dtype) and not isinstance(s.dtype, pd.CategoricalDtype) and len(s):
@@ -93,16 +87,6 @@ def _canonical_codes(s: pd.Series) -> tuple[np.ndarray, np.ndarray]:
 def _is_text(codes: np.ndarray, text: np.ndarray, value: str) -> np.ndarray:
     hit = np.array([t == value for t in text], dtype=bool)
     return hit[codes]
-
-
-def sha256_of(path: str) -> tuple[str, int]:
-    h = hashlib.sha256()
-    size = 0
-    with open(path, "rb") as fh:
-        for block in iter(lambda: fh.read(1 << 20), b""):
-            h.update(block)
-            size += len(block)
-    return h.hexdigest(), size
 
 
 def read_table(source: str | os.PathLike | bytes, *, name: str | None = None) -> tuple[pd.DataFrame, SourceInfo]:

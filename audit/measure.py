@@ -11,7 +11,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-import pandas as pd
 
 
 @dataclass(frozen=True)
@@ -55,9 +54,15 @@ METRICS: dict[str, Metric] = {m.name: m for m in [
     _m("brier", "Brier score", "mean", True, None, "n", "(1/n) Σ (p - y)²", True),
 ]}
 
-#: Rates reported (with Wilson intervals) for every slice, in output order.
-RATE_COLUMNS = ["accuracy", "error_rate", "precision", "recall", "specificity", "fpr", "fnr", "npv",
-                "selection_rate", "base_rate"]
+#: Every rate reported (with an interval) for every slice, in output order: name -> (numerator,
+#: denominator), both named counts of ``count_frame``.
+RATES: dict[str, tuple[str, str]] = {
+    "accuracy": ("correct", "n"), "error_rate": ("errors", "n"), "precision": ("tp", "pred_pos"),
+    "recall": ("tp", "actual_pos"), "specificity": ("tn", "actual_neg"), "fpr": ("fp", "actual_neg"),
+    "fnr": ("fn", "actual_pos"), "npv": ("tn", "pred_neg"), "selection_rate": ("pred_pos", "n"),
+    "base_rate": ("actual_pos", "n"),
+}
+RATE_COLUMNS = list(RATES)
 
 EXTRA_FORMULAS = {
     "selection_rate": "(tp + fp) / n  (share predicted positive)",
@@ -90,21 +95,12 @@ def count_frame(counts: np.ndarray) -> dict[str, np.ndarray]:
 
 def metric_values(c: dict[str, np.ndarray], sums: np.ndarray | None) -> dict[str, np.ndarray]:
     """Every metric for every slice; NaN where undefined (see module docstring)."""
-    v = {
-        "accuracy": ratio(c["correct"], c["n"]),
-        "error_rate": ratio(c["errors"], c["n"]),
-        "precision": ratio(c["tp"], c["pred_pos"]),
-        "recall": ratio(c["tp"], c["actual_pos"]),
-        "specificity": ratio(c["tn"], c["actual_neg"]),
-        "fpr": ratio(c["fp"], c["actual_neg"]),
-        "fnr": ratio(c["fn"], c["actual_pos"]),
-        "npv": ratio(c["tn"], c["pred_neg"]),
-        "selection_rate": ratio(c["pred_pos"], c["n"]),
-        "base_rate": ratio(c["actual_pos"], c["n"]),
+    v = {name: ratio(c[num], c[den]) for name, (num, den) in RATES.items()}
+    v.update({
         "f1": ratio(2 * c["tp"], 2 * c["tp"] + c["fp"] + c["fn"]),
         "f1_neg": ratio(2 * c["tn"], 2 * c["tn"] + c["fp"] + c["fn"]),
         "jaccard": ratio(c["tp"], c["tp_fp_fn"]),
-    }
+    })
     v["macro_f1"] = (v["f1"] + v["f1_neg"]) / 2.0  # NaN if either class's F1 is undefined
     if sums is not None:
         v["log_loss"] = ratio(sums[:, 0], c["n"])
@@ -113,13 +109,3 @@ def metric_values(c: dict[str, np.ndarray], sums: np.ndarray | None) -> dict[str
         v["log_loss"] = np.full(len(c["n"]), np.nan)
         v["brier"] = np.full(len(c["n"]), np.nan)
     return v
-
-
-def confusion_table(row: pd.Series | dict, classes: tuple[str, str]) -> pd.DataFrame:
-    """A 2 × 2 confusion matrix (rows: actual, columns: predicted) from a slice's counts."""
-    neg, pos = classes
-    return pd.DataFrame(
-        [[int(row["tn"]), int(row["fp"])], [int(row["fn"]), int(row["tp"])]],
-        index=pd.Index([f"actual {neg}", f"actual {pos}"]),
-        columns=pd.Index([f"predicted {neg}", f"predicted {pos}"]),
-    )

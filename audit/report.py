@@ -7,7 +7,6 @@ from __future__ import annotations
 
 import datetime as _dt
 import html
-import json
 import os
 import shutil
 import subprocess
@@ -289,8 +288,3 @@ def html_to_pdf(html_text: str, *, timeout: float = 120.0) -> tuple[bytes | None
             return None, "PDF not written: Chromium produced no file; HTML written"
         with open(out, "rb") as fh:
             return fh.read(), None
-
-
-def dumps_for_script(obj) -> str:
-    """JSON safe to place inside a <script> element."""
-    return json.dumps(obj).replace("<", "\\u003c").replace(">", "\\u003e").replace("&", "\\u0026")

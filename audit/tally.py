@@ -29,9 +29,6 @@ try:  # the compiled kernel is optional at import time; numpy is the fallback
 except ImportError:  # pragma: no cover - numba is a declared dependency
     numba = None
 
-    def small_histogram(codes, size):
-        return np.bincount(codes, minlength=size)
-
 #: Probabilities are clipped to [EPS, 1 - EPS] before taking logs.
 EPS = 1e-15
 N_SUMS = 4  # Σ ll, Σ ll², Σ brier, Σ brier²
@@ -84,16 +81,6 @@ def _layout(families, cards):
     sizes = [int(np.prod(s)) if s else 1 for s in shapes]
     offsets = np.concatenate([[0], np.cumsum(sizes)]).astype(np.int64)
     return shapes, offsets
-
-
-def column_matrix(codes: list[np.ndarray], cards: list[int]) -> np.ndarray:
-    """Attributes × rows matrix of codes in the narrowest integer type (one contiguous row per attribute)."""
-    top = max(cards) if cards else 1
-    dt = np.uint8 if top <= 255 else (np.int16 if top <= 32767 else np.int32)
-    out = np.empty((len(codes), len(codes[0]) if codes else 0), dtype=dt)
-    for i, c in enumerate(codes):
-        out[i] = c
-    return out
 
 
 def code_matrix(codes: list[np.ndarray], cards: list[int]) -> np.ndarray:
@@ -182,6 +169,11 @@ if numba is not None:
                     o[base + 6] += b
                     o[base + 7] += b2
         return acc
+
+else:  # pragma: no cover - numba is a declared dependency
+
+    def small_histogram(codes, size):
+        return np.bincount(codes, minlength=size)
 
 
 def tally(codes, cards, cell, ll=None, br=None, *, families, n_classes=2, kernel="auto",

@@ -80,21 +80,18 @@ def test_duplicate_columns_in_frame():
         read_outcomes(df, label="y", score="p")
 
 
-def test_read_table_errors(tmp_path):
-    with pytest.raises(AuditInputError, match=r"does not exist"):
-        read_table(tmp_path / "missing.csv")
-    (tmp_path / "empty.csv").write_text("")
-    with pytest.raises(AuditInputError, match=r"'empty.csv' is empty"):
-        read_table(tmp_path / "empty.csv")
-    (tmp_path / "head.csv").write_text("y,p,g\n")
-    with pytest.raises(AuditInputError, match=r"'head.csv' has a header but no data rows"):
-        read_table(tmp_path / "head.csv")
-    (tmp_path / "dup.csv").write_text("y,p,p\n0,0.1,0.2\n")
-    with pytest.raises(AuditInputError, match=r"'dup.csv' has the column name 'p' more than once"):
-        read_table(tmp_path / "dup.csv")
-    (tmp_path / "x.json").write_text("{}")
-    with pytest.raises(AuditInputError, match=r"extension '.json'"):
-        read_table(tmp_path / "x.json")
+@pytest.mark.parametrize("name,content,msg", [
+    ("missing.csv", None, r"does not exist"),
+    ("empty.csv", "", r"'empty.csv' is empty"),
+    ("head.csv", "y,p,g\n", r"'head.csv' has a header but no data rows"),
+    ("dup.csv", "y,p,p\n0,0.1,0.2\n", r"'dup.csv' has the column name 'p' more than once"),
+    ("x.json", "{}", r"extension '.json'"),
+])
+def test_read_table_errors(tmp_path, name, content, msg):
+    if content is not None:
+        (tmp_path / name).write_text(content)
+    with pytest.raises(AuditInputError, match=msg):
+        read_table(tmp_path / name)
 
 
 def test_read_table_parquet_and_hash(tmp_path):

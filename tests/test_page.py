@@ -1,10 +1,7 @@
 """The page through Streamlit's AppTest, driving the real engine."""
-import io
 import os
 
-import numpy as np
 import pandas as pd
-import pytest
 from streamlit.testing.v1 import AppTest
 
 import audit

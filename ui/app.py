@@ -11,7 +11,6 @@ from __future__ import annotations
 import os
 import sys
 
-import numpy as np
 import pandas as pd
 import streamlit as st
 
