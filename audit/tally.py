@@ -19,6 +19,7 @@ reference and fallback. Float sums agree to rounding.
 """
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -32,6 +33,8 @@ except ImportError:  # pragma: no cover - numba is a declared dependency
 #: Probabilities are clipped to [EPS, 1 - EPS] before taking logs.
 EPS = 1e-15
 N_SUMS = 4  # Σ ll, Σ ll², Σ brier, Σ brier²
+#: Rows per block of the compiled kernel (see ``_binary_kernel``); measured in bench/.
+KERNEL_BLOCK = 8192
 
 
 def row_losses(y: np.ndarray, score: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -78,7 +81,7 @@ def plan_families(n_attributes: int, max_order: int) -> list[tuple[int, ...]]:
 
 def _layout(families, cards):
     shapes = tuple(tuple(cards[i] for i in f) for f in families)
-    sizes = [int(np.prod(s)) if s else 1 for s in shapes]
+    sizes = [math.prod(s) for s in shapes]
     offsets = np.concatenate([[0], np.cumsum(sizes)]).astype(np.int64)
     return shapes, offsets
 
@@ -128,25 +131,36 @@ if numba is not None:
 
     @njit(parallel=True, cache=True, nogil=True)
     def _histogram(codes, size, nth):  # pragma: no cover - compiled
+        # Four interleaved counters per thread: a run of equal codes does not wait on one counter.
         n = codes.shape[0]
-        out = np.zeros((nth, size), dtype=np.int64)
+        out = np.zeros((nth, 4, size), dtype=np.int64)
         chunk = (n + nth - 1) // nth
         for t in prange(nth):
             o = out[t]
-            for i in range(t * chunk, min(n, (t + 1) * chunk)):
-                o[codes[i]] += 1
-        return out.sum(axis=0)
+            lo = t * chunk
+            hi = min(n, lo + chunk)
+            stop = lo + (hi - lo) // 4 * 4
+            for i in range(lo, stop, 4):
+                o[0, codes[i]] += 1
+                o[1, codes[i + 1]] += 1
+                o[2, codes[i + 2]] += 1
+                o[3, codes[i + 3]] += 1
+            for i in range(stop, hi):
+                o[0, codes[i]] += 1
+        return out.sum(axis=0).sum(axis=0)
 
     def small_histogram(codes, size):
         """Counts of each value of a small unsigned integer array (no int64 copy, unlike np.bincount)."""
         return _histogram(codes, size, max(1, min(numba.get_num_threads(), 1 + len(codes) // 100_000)))
 
     @njit(parallel=True, cache=True, nogil=True)
-    def _binary_kernel(gt, cell, ll, br, ga, gb, gcb, off, total, nth):  # pragma: no cover - compiled
+    def _binary_kernel(gt, cell, ll, br, ga, gb, gcb, off, total, nth, block):  # pragma: no cover - compiled
         # One record per slice of each group pair: 4 cell counts then Σll, Σll², Σbr, Σbr², kept
         # together so an update touches one cache line; counts are float64, exact below 2**53.
-        # The record width is fixed at compile time (about 1.5x faster than a run-time width).
-        n = gt.shape[0]
+        # Each thread takes a contiguous share of the rows and walks it in blocks; within a block
+        # it finishes one group pair before the next, so the updates of a run stay in one table
+        # and the group codes are read as contiguous streams (gt is groups × rows).
+        n = cell.shape[0]
         nf = ga.shape[0]
         acc = np.zeros((nth, total * 8), dtype=np.float64)
         chunk = (n + nth - 1) // nth
@@ -154,20 +168,22 @@ if numba is not None:
             lo = t * chunk
             hi = min(n, lo + chunk)
             o = acc[t]
-            for r in range(lo, hi):
-                row = gt[r]
-                ce = cell[r]
-                a = ll[r]
-                b = br[r]
-                a2 = a * a
-                b2 = b * b
+            for blo in range(lo, hi, block):
+                bhi = min(hi, blo + block)
                 for k in range(nf):
-                    base = (off[k] + row[ga[k]] * gcb[k] + row[gb[k]]) * 8
-                    o[base + ce] += 1.0
-                    o[base + 4] += a
-                    o[base + 5] += a2
-                    o[base + 6] += b
-                    o[base + 7] += b2
+                    start = off[k]
+                    ca = gt[ga[k]]
+                    cb = gt[gb[k]]
+                    width = gcb[k]
+                    for r in range(blo, bhi):
+                        base = (start + np.int64(ca[r]) * width + cb[r]) * 8
+                        a = ll[r]
+                        b = br[r]
+                        o[base + cell[r]] += 1.0
+                        o[base + 4] += a
+                        o[base + 5] += a * a
+                        o[base + 6] += b
+                        o[base + 7] += b * b
         return acc
 
 else:  # pragma: no cover - numba is a declared dependency
@@ -226,7 +242,7 @@ def _grouped_pairs(codes, cards, cell, ll, br, pairs, n_classes, limit) -> Tally
     if len(groups) == len(cards) or len(groups) < 2:
         return _compiled(codes, cards, cell, ll, br, pairs, n_classes)
     where = {a: gi for gi, g in enumerate(groups) for a in g}
-    gcards = [int(np.prod([cards[a] for a in g])) for g in groups]
+    gcards = [math.prod(cards[a] for a in g) for g in groups]
     gpairs = [(i, j) for i in range(len(groups)) for j in range(i + 1, len(groups))]
     acc = _run_group_kernel(codes, cards, cell, ll, br, groups, gcards, gpairs, n_classes)
     gshapes, goffsets = _layout(gpairs, gcards)
@@ -309,19 +325,20 @@ def _run_group_kernel(codes, cards, cell, ll, br, groups, gcards, gpairs, n_clas
     if ll is None:
         ll = br = np.zeros(len(cell))
     nth = max(1, min(numba.get_num_threads(), 1 + len(cell) // 50_000))
-    # Rows × groups matrix of group codes (mixed radix of the members), in the narrowest type.
+    # Groups × rows matrix of group codes (mixed radix of the members), in the narrowest type;
+    # built row by row of the matrix so every numpy step runs over contiguous memory.
     gdt = np.uint16 if max(gcards) <= 65535 else np.int64
-    gt = np.empty((len(cell), len(groups)), dtype=gdt)
+    gt = np.empty((len(groups), len(cell)), dtype=gdt)
     for q, g in enumerate(groups):
+        v = gt[q]
         if not g:
-            gt[:, q] = 0
+            v[:] = 0
             continue
-        v = codes[g[0]].astype(gdt)
+        np.copyto(v, codes[g[0]], casting="unsafe")
         for a in g[1:]:
             np.multiply(v, gdt(cards[a]), out=v)
             np.add(v, codes[a], out=v, casting="unsafe")
-        gt[:, q] = v
     total = int(goffsets[-1])
     c8 = cell.astype(np.int8, copy=False)
-    acc = _binary_kernel(gt, c8, ll, br, ga, gb, gcb, goffsets[:-1].copy(), total, nth)
+    acc = _binary_kernel(gt, c8, ll, br, ga, gb, gcb, goffsets[:-1].copy(), total, nth, KERNEL_BLOCK)
     return acc.sum(axis=0).reshape(total, kk + 4)
