@@ -66,7 +66,7 @@ def _natural_key(v: str):
 def _raw_levels(s: pd.Series):
     """Raw codes (-1 = missing), their texts and per-code row counts, without copying the column."""
     if isinstance(s.dtype, pd.CategoricalDtype):
-        raw = s.cat.codes.to_numpy()
+        raw = s.array.codes  # a read-only view of the column's codes, no copy
         text = [str(c) for c in s.cat.categories]
     else:
         raw, uniques = pd.factorize(s, use_na_sentinel=True)

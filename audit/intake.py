@@ -17,6 +17,7 @@ import numpy as np
 import pandas as pd
 
 from .errors import AuditInputError
+from .tally import small_histogram
 
 # Label pairs whose positive member is obvious; matched on lower-cased text.
 _KNOWN_PAIRS = [
@@ -72,11 +73,14 @@ def canonical(value: Any) -> str:
 
 def _canonical_codes(s: pd.Series) -> tuple[np.ndarray, np.ndarray]:
     """Codes into an array of canonical texts (the last entry, '', stands for missing)."""
-    if pd.api.types.is_integer_dtype(s.dtype) and not isinstance(s.dtype, pd.CategoricalDtype) and len(s):
+    if (pd.api.types.is_integer_dtype(s.dtype) or pd.api.types.is_bool_dtype(s.dtype)) \
+            and isinstance(s.dtype, np.dtype) and len(s):
         v = s.to_numpy()
+        if v.dtype == np.bool_:
+            v = v.view(np.uint8)
         lo, hi = int(v.min()), int(v.max())
-        if hi - lo < 1024:  # small integer labels: offsets are the codes, no hashing
-            codes = (v - lo).astype(np.intp)
+        if hi - lo < 256:  # small integer labels: offsets are the codes (one byte), no hashing
+            codes = v.view(np.uint8) if lo == 0 and v.dtype.itemsize == 1 else (v - lo).astype(np.uint8)
             text = np.array([str(lo + i) for i in range(hi - lo + 1)] + [""], dtype=object)
             return codes, text
     codes, uniques = pd.factorize(s, use_na_sentinel=True)
@@ -84,9 +88,17 @@ def _canonical_codes(s: pd.Series) -> tuple[np.ndarray, np.ndarray]:
     return codes, text
 
 
+def _present(codes: np.ndarray, size: int) -> np.ndarray:
+    """Which of ``size`` codes occur (missing, -1, is not counted)."""
+    if codes.dtype == np.uint8:
+        return small_histogram(codes, 256)[:size] > 0
+    return np.bincount(codes[codes >= 0], minlength=size) > 0
+
+
 def _is_text(codes: np.ndarray, text: np.ndarray, value: str) -> np.ndarray:
-    hit = np.array([t == value for t in text], dtype=bool)
-    return hit[codes]
+    """0/1 (int8) per row: does the row's text equal ``value``."""
+    hit = np.array([t == value for t in text], dtype=np.int8)
+    return np.take(hit, codes)
 
 
 def read_table(source: str | os.PathLike | bytes, *, name: str | None = None) -> tuple[pd.DataFrame, SourceInfo]:
@@ -207,7 +219,7 @@ def read_outcomes(
     if missing.any():
         raise AuditInputError(f"label column '{label}' has a missing value at {_row(_first_bad(missing))}")
     ycodes, ytext_u = _canonical_codes(ys)
-    present = np.bincount(ycodes[ycodes >= 0], minlength=len(ytext_u)) > 0
+    present = _present(ycodes, len(ytext_u))
     classes = sorted(set(ytext_u[np.flatnonzero(present)].tolist()))
     if len(classes) != 2:
         shown = ", ".join(classes[:5]) + (", ..." if len(classes) > 5 else "")
@@ -226,7 +238,7 @@ def read_outcomes(
                 f"positive class {positive!r} does not occur in label column '{label}' (classes: {classes[0]}, {classes[1]})"
             )
     neg = classes[0] if classes[1] == pos else classes[1]
-    y = _is_text(ycodes, ytext_u, pos).astype(np.int8)
+    y = _is_text(ycodes, ytext_u, pos)
 
     p = None
     if score is not None:
@@ -241,11 +253,11 @@ def read_outcomes(
                 )
             raw = conv
         p = raw.to_numpy(dtype=float)
-        nan = np.isnan(p)
-        if nan.any():
-            raise AuditInputError(f"probability column '{score}' has a missing value at {_row(_first_bad(nan))}")
-        out = (p < 0) | (p > 1)
-        if out.any():
+        lo, hi = float(p.min()), float(p.max())  # both NaN if any value is NaN
+        if np.isnan(lo) or np.isnan(hi):
+            raise AuditInputError(f"probability column '{score}' has a missing value at {_row(_first_bad(np.isnan(p)))}")
+        if lo < 0 or hi > 1:
+            out = (p < 0) | (p > 1)
             i = _first_bad(out)
             raise AuditInputError(
                 f"probability column '{score}' has value {p[i]:g} at {_row(i)}; probabilities must lie in [0, 1]"
@@ -264,10 +276,10 @@ def read_outcomes(
                 f"prediction column '{pred}' has value {ptext_u[pcodes[i]]!r} at {_row(i)}, which is not a class of "
                 f"label column '{label}' ({classes[0]}, {classes[1]})"
             )
-        yhat = _is_text(pcodes, ptext_u, pos).astype(np.int8)
+        yhat = _is_text(pcodes, ptext_u, pos)
         source = "column"
     else:
-        yhat = (p >= float(threshold)).astype(np.int8)
+        yhat = (p >= float(threshold)).view(np.int8)
         source = "threshold"
     return Outcomes(y=y, yhat=yhat, score=p, classes=(neg, pos), positive=pos,
                     positive_inferred=inferred, prediction_source=source)
