@@ -14,8 +14,47 @@ from scipy import stats
 
 
 @lru_cache(maxsize=64)
+def _normal_quantile(q: float) -> float:
+    return float(stats.norm.ppf(q))
+
+
 def _z(level: float) -> float:
-    return float(stats.norm.ppf(0.5 + level / 2.0))
+    return _normal_quantile(0.5 + level / 2.0)
+
+
+#: Above this many degrees of freedom the t quantile comes from its expansion in 1/ν.
+T_SERIES_MIN_DF = 400.0
+
+
+def t_quantile(q: float, df) -> np.ndarray:
+    """Quantile ``q`` of Student's t with ``df`` degrees of freedom (vectorised over ``df``).
+
+    Notes
+    -----
+    For ``df >= T_SERIES_MIN_DF`` the expansion of the t quantile about the normal quantile
+    x in powers of 1/ν (Abramowitz & Stegun 1964, 26.7.5, four terms) replaces the iterative
+    inverse; below it ``scipy.stats.t.ppf`` is used. For ``0.75 <= q <= 0.99995`` (interval
+    levels 0.5 to 0.9999) the two agree within 1e-10 (checked against scipy in the tests).
+
+    References
+    ----------
+    1. Abramowitz, M. & Stegun, I. A. (1964). Handbook of Mathematical Functions, 26.7.5.
+    """
+    df = np.asarray(df, dtype=float)
+    shape, df = df.shape, df.reshape(-1)
+    x = _normal_quantile(q)
+    x2 = x * x
+    g1 = (x2 + 1) * x / 4
+    g2 = ((5 * x2 + 16) * x2 + 3) * x / 96
+    g3 = (((3 * x2 + 19) * x2 + 17) * x2 - 15) * x / 384
+    g4 = ((((79 * x2 + 776) * x2 + 1482) * x2 - 1920) * x2 - 945) * x / 92160
+    with np.errstate(invalid="ignore", divide="ignore"):
+        inv = 1.0 / df
+        out = x + inv * (g1 + inv * (g2 + inv * (g3 + inv * g4)))
+    small = ~(df >= T_SERIES_MIN_DF)  # NaN df goes to scipy too, which returns NaN
+    if small.any():
+        out[small] = stats.t.ppf(q, df[small])
+    return out.reshape(shape)
 
 
 def wilson(k, n, *, level: float = 0.95):
@@ -108,7 +147,7 @@ def mean_interval(n, s, ss, *, level: float = 0.95):
         m = s / n
         var = np.maximum(ss - n * m * m, 0.0) / (n - 1)
         se = np.sqrt(var / n)
-        t = stats.t.ppf(0.5 + level / 2, np.maximum(n - 1, 1))
+        t = t_quantile(0.5 + level / 2, np.maximum(n - 1, 1))
         lo, hi = m - t * se, m + t * se
     bad = ~(n > 1)
     return np.where(bad, np.nan, lo), np.where(bad, np.nan, hi)
@@ -137,6 +176,6 @@ def welch_difference(n1, s1, ss1, n2, s2, ss2, *, level: float = 0.95):
         a, b = v1 / n1, v2 / n2
         se = np.sqrt(a + b)
         df = (a + b) ** 2 / (a * a / (n1 - 1) + b * b / (n2 - 1))  # Welch-Satterthwaite
-        t = stats.t.ppf(0.5 + level / 2, df)
+        t = t_quantile(0.5 + level / 2, df)
         d = m1 - m2
     return d, d - t * se, d + t * se, se, df, v1, v2

@@ -100,3 +100,27 @@ def test_f1_interval_coverage_simulation():
         lo, hi = f1_interval(cells[:, 3], cells[:, 1], cells[:, 2])
         covers.append(np.mean((lo <= true_f1) & (true_f1 <= hi)))
     assert all(0.93 <= c <= 0.97 for c in covers), covers
+
+
+@pytest.mark.parametrize("level", [0.5, 0.8, 0.9, 0.95, 0.99, 0.999, 0.9999])
+def test_t_quantile_against_scipy(level):
+    # Reference: scipy.stats.t.ppf. Below 400 degrees of freedom t_quantile calls it; above, the
+    # Abramowitz & Stegun (1964) 26.7.5 expansion must agree within 1e-10.
+    from audit.intervals import T_SERIES_MIN_DF, t_quantile
+
+    df = np.r_[1.0, 2.5, 30.0, 399.0, np.arange(T_SERIES_MIN_DF, T_SERIES_MIN_DF + 3000.0),
+               10 ** np.linspace(np.log10(T_SERIES_MIN_DF), 9, 400), np.inf]
+    q = 0.5 + level / 2
+    np.testing.assert_allclose(t_quantile(q, df), stats.t.ppf(q, df), rtol=0, atol=1e-10)
+    assert np.isnan(t_quantile(q, np.array([np.nan]))[0])
+
+
+def test_mean_interval_against_scipy_t_interval_for_large_slices():
+    # Reference: scipy.stats.t.interval on the same mean and standard error, slices of 1,000 to
+    # 200,000 rows (the expansion's range).
+    rng = np.random.default_rng(5)
+    for n in (1_000, 20_000, 200_000):
+        x = rng.gamma(2.0, 0.3, n)
+        lo, hi = mean_interval(np.array([n]), np.array([x.sum()]), np.array([(x * x).sum()]), level=0.95)
+        rlo, rhi = stats.t.interval(0.95, n - 1, loc=x.mean(), scale=stats.sem(x))
+        assert lo[0] == pytest.approx(rlo, rel=1e-12) and hi[0] == pytest.approx(rhi, rel=1e-12)
