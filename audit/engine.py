@@ -141,10 +141,10 @@ def _names(fam: tuple[int, ...], attrs: Sequence[Attribute]) -> tuple[list, list
         vals = list(a.levels)
         return [f"{a.name}={v}" for v in vals], [a.name] * len(vals), vals, [""] * len(vals), [""] * len(vals)
     a, b = attrs[fam[0]], attrs[fam[1]]
-    va = np.repeat(np.array(a.levels, dtype=object), b.cardinality)
-    vb = np.tile(np.array(b.levels, dtype=object), a.cardinality)
-    names = (f"{a.name}=" + va + f" & {b.name}=" + vb).tolist()
-    return names, [a.name] * len(va), va.tolist(), [b.name] * len(vb), vb.tolist()
+    size = a.cardinality * b.cardinality
+    names = [f"{a.name}={x} & {b.name}={y}" for x in a.levels for y in b.levels]
+    va = [x for x in a.levels for _ in b.levels]
+    return names, [a.name] * size, va, [b.name] * size, list(b.levels) * a.cardinality
 
 
 def _check_settings(cfg: AuditConfig, has_score: bool) -> None:
@@ -432,8 +432,8 @@ def _audit(out: Outcomes, attrs: list[Attribute], skipped, cfg: AuditConfig, sou
     cols["q_value"] = q
     cols["status"] = status
     cols["status_reason"] = reason
+    cols.update(flag_and_rank(cols, alpha=cfg.alpha, higher_is_worse=m.higher_is_worse))
     df = pd.DataFrame(cols)
-    df = flag_and_rank(df, alpha=cfg.alpha, higher_is_worse=m.higher_is_worse)
     timings["statistics"] = time.perf_counter() - t
 
     whole = df.iloc[0]

@@ -10,6 +10,8 @@ level order), so the ranking is deterministic.
 """
 from __future__ import annotations
 
+from typing import Any, Mapping
+
 import numpy as np
 import pandas as pd
 
@@ -19,24 +21,23 @@ def badness(diff_low: np.ndarray, diff_high: np.ndarray, *, higher_is_worse: boo
     return np.asarray(diff_low if higher_is_worse else -np.asarray(diff_high), dtype=float)
 
 
-def flag_and_rank(df: pd.DataFrame, *, alpha: float, higher_is_worse: bool) -> pd.DataFrame:
-    """Add ``worse``, ``flagged``, ``severity`` and ``rank`` columns to a slice table."""
-    tested = (df["status"] == "tested").to_numpy()
-    diff = df["diff"].to_numpy(dtype=float)
+def flag_and_rank(cols: Mapping[str, np.ndarray], *, alpha: float, higher_is_worse: bool) -> dict[str, Any]:
+    """The ``worse_than_rest``, ``flagged``, ``severity`` and ``rank`` columns of a slice table.
+
+    ``cols`` maps the table's columns (``status``, ``diff``, ``diff_low``, ``diff_high``,
+    ``p_value``, ``q_value``) to arrays of equal length.
+    """
+    tested = np.asarray(cols["status"]) == "tested"
+    diff = np.asarray(cols["diff"], dtype=float)
     worse = (diff > 0) if higher_is_worse else (diff < 0)
-    q = df["q_value"].to_numpy(dtype=float)
+    q = np.asarray(cols["q_value"], dtype=float)
     flagged = tested & worse & (q <= alpha)
-    sev = badness(df["diff_low"].to_numpy(dtype=float), df["diff_high"].to_numpy(dtype=float),
+    sev = badness(np.asarray(cols["diff_low"], dtype=float), np.asarray(cols["diff_high"], dtype=float),
                   higher_is_worse=higher_is_worse)
     sev = np.where(tested, sev, np.nan)
     idx = np.flatnonzero(tested)
-    order = np.lexsort((idx, df["p_value"].to_numpy(dtype=float)[idx], -sev[idx]))
-    rank = np.full(len(df), np.nan)
+    order = np.lexsort((idx, np.asarray(cols["p_value"], dtype=float)[idx], -sev[idx]))
+    rank = np.zeros(len(tested), dtype=np.int64)
     rank[idx[order]] = np.arange(1, len(idx) + 1)
-    out = df  # the engine owns this frame; columns are added in place
-    out["worse_than_rest"] = np.where(tested, worse, False)
-    out["flagged"] = flagged
-    out["severity"] = sev
-    missing = np.isnan(rank)
-    out["rank"] = pd.arrays.IntegerArray(np.where(missing, 0, rank).astype(np.int64), missing)
-    return out
+    return {"worse_than_rest": tested & worse, "flagged": flagged, "severity": sev,
+            "rank": pd.arrays.IntegerArray(rank, ~tested)}
