@@ -86,15 +86,6 @@ def _layout(families, cards):
     return shapes, offsets
 
 
-def code_matrix(codes: list[np.ndarray], cards: list[int]) -> np.ndarray:
-    """Row-major (rows × attributes) matrix of codes in the narrowest integer type."""
-    top = max(cards) if cards else 1
-    dt = np.uint8 if top <= 255 else (np.int16 if top <= 32767 else np.int32)
-    if not codes:
-        return np.zeros((0, 0), dtype=dt)
-    return np.ascontiguousarray(np.stack([c.astype(dt, copy=False) for c in codes], axis=1))
-
-
 def tally_numpy(codes, cards, cell, ll=None, br=None, *, families, n_classes=2) -> Tally:
     """Reference kernel: one ``np.bincount`` per family and quantity."""
     kk = n_classes * n_classes

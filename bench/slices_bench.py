@@ -13,10 +13,16 @@ times, in this one process and on the same in-memory data:
 
 Each peer computes, per slice, n, tp, fp, fn, tn, Σ log loss, Σ log loss², Σ Brier and
 Σ Brier² — the sums Fissure derives everything from. Counts of every peer are checked
-against Fissure's. Timings are the best of ``--repeat`` runs after one warm-up; machines
-here are shared, so read the ratios, not the seconds.
+against Fissure's.
 
-    python bench/slices_bench.py [--rows 1000000] [--repeat 3]
+Every contender runs once as a warm-up, then ``--repeat`` rounds follow in which each
+contender runs once, in turn. The machines here are shared and their speed drifts over
+seconds, so running the contenders side by side in each round keeps them under the same
+load. Two ratios are printed for each peer: best peer time over best Fissure time, and the
+median over rounds of (peer time / Fissure time) in the same round. Read the ratios, not
+the seconds.
+
+    python bench/slices_bench.py [--rows 1000000] [--repeat 5] [--skip pandas]
 """
 from __future__ import annotations
 
@@ -95,23 +101,26 @@ def peer_duckdb(con):
     return con.execute(q).df()
 
 
-def best(fn, repeat):
-    fn()  # warm-up (numba cache load, query planning)
-    times = []
-    out = None
+def rounds(contenders, repeat):
+    """Warm each contender up once, then run them in turn ``repeat`` times; per-contender times."""
+    outs = {name: fn() for name, fn in contenders.items()}  # warm-up (numba cache load, query planning)
+    times = {name: [] for name in contenders}
     for _ in range(repeat):
-        t = time.perf_counter()
-        out = fn()
-        times.append(time.perf_counter() - t)
-    return min(times), out
+        for name, fn in contenders.items():
+            t = time.perf_counter()
+            outs[name] = fn()
+            times[name].append(time.perf_counter() - t)
+    return {k: np.array(v) for k, v in times.items()}, outs
 
 
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description="Fissure slice-statistics benchmark")
     ap.add_argument("--rows", type=int, default=1_000_000)
-    ap.add_argument("--repeat", type=int, default=3)
+    ap.add_argument("--repeat", type=int, default=5, help="rounds after the warm-up (default 5)")
+    ap.add_argument("--skip", default="", help="comma-separated peers to leave out: pandas, polars, duckdb")
     ap.add_argument("--json", help="also write results to this JSON file")
     a = ap.parse_args(argv)
+    skip = {x.strip() for x in a.skip.split(",") if x.strip()}
 
     print(f"building {a.rows:,} rows x {len(CARDS)} categorical attributes ...", flush=True)
     df = build(a.rows)
@@ -119,12 +128,35 @@ def main(argv=None) -> int:
     n_slices = sum(CARDS) + sum(x * y for x, y in itertools.combinations(CARDS, 2))
     print(f"{len(families())} families, {n_slices:,} possible slices")
 
-    res = {}
-    t_audit, r = best(lambda: audit.run(df, label="y", score="p", auc_max_order=-1), a.repeat)
-    res["fissure audit (no AUC)"] = t_audit
-    t_auc, r_auc = best(lambda: audit.run(df, label="y", score="p"), a.repeat)
-    res["fissure audit (with AUC, orders 0-1)"] = t_auc
-    res["  of which tally"] = r.timings["tally"]
+    FIS, FIS_AUC = "fissure audit (no AUC)", "fissure audit (with AUC, orders 0-1)"
+    contenders = {
+        FIS: lambda: audit.run(df, label="y", score="p", auc_max_order=-1),
+        FIS_AUC: lambda: audit.run(df, label="y", score="p"),
+    }
+    if "pandas" not in skip:
+        contenders["pandas groupby-sum"] = lambda: peer_pandas(ext)
+    try:
+        import polars as pl
+    except ImportError:
+        print("polars not installed: skipped")
+    else:
+        if "polars" not in skip:
+            pdf = pl.from_pandas(ext)
+            contenders["polars group_by"] = lambda: peer_polars(pdf)
+    try:
+        import duckdb
+    except ImportError:
+        print("duckdb not installed: skipped")
+    else:
+        if "duckdb" not in skip:
+            con = duckdb.connect()
+            con.execute("SET enable_progress_bar=false")
+            con.register("ext", ext)
+            contenders["duckdb GROUPING SETS"] = lambda: peer_duckdb(con)
+
+    print(f"{len(contenders)} contenders, 1 warm-up + {a.repeat} interleaved rounds ...", flush=True)
+    times, outs = rounds(contenders, a.repeat)
+    r = outs[FIS]
     sl = r.slices.set_index("slice")
 
     def check(name, fam, key_values, counts):
@@ -133,40 +165,22 @@ def main(argv=None) -> int:
         if not np.array_equal(got, np.asarray(counts, dtype=np.int64)):
             raise SystemExit(f"{name} disagrees with Fissure on {slice_name}: {counts} vs {got.tolist()}")
 
-    t, out = best(lambda: peer_pandas(ext), a.repeat)
-    res["pandas groupby-sum"] = t
-    checked = 0
-    for fam, g in out.items():
-        for key, row in g.iterrows():
-            check("pandas", fam, key if isinstance(key, tuple) else (key,), row[["tp", "fp", "fn", "tn"]].tolist())
-            checked += 1
-    print(f"pandas peer: {checked:,} slices agree with Fissure's counts")
-
-    try:
-        import polars as pl
-    except ImportError:
-        print("polars not installed: skipped")
-    else:
-        pdf = pl.from_pandas(ext)
-        t, out = best(lambda: peer_polars(pdf), a.repeat)
-        res["polars group_by"] = t
+    if "pandas groupby-sum" in outs:
         checked = 0
-        for fam, g in out.items():
+        for fam, g in outs["pandas groupby-sum"].items():
+            for key, row in g.iterrows():
+                check("pandas", fam, key if isinstance(key, tuple) else (key,), row[["tp", "fp", "fn", "tn"]].tolist())
+                checked += 1
+        print(f"pandas peer: {checked:,} slices agree with Fissure's counts")
+    if "polars group_by" in outs:
+        checked = 0
+        for fam, g in outs["polars group_by"].items():
             for row in g.iter_rows(named=True):
                 check("polars", fam, [row[c] for c in fam], [row[v] for v in ("tp", "fp", "fn", "tn")])
                 checked += 1
         print(f"polars peer: {checked:,} slices agree with Fissure's counts")
-
-    try:
-        import duckdb
-    except ImportError:
-        print("duckdb not installed: skipped")
-    else:
-        con = duckdb.connect()
-        con.execute("SET enable_progress_bar=false")
-        con.register("ext", ext)
-        t, out = best(lambda: peer_duckdb(con), a.repeat)
-        res["duckdb GROUPING SETS"] = t
+    if "duckdb GROUPING SETS" in outs:
+        out = outs["duckdb GROUPING SETS"]
         keys = [f"a{i:02d}" for i in range(len(CARDS))]
         present = out[keys].notna().to_numpy()
         checked = 0
@@ -176,19 +190,27 @@ def main(argv=None) -> int:
             checked += 1
         print(f"duckdb peer: {checked:,} slices agree with Fissure's counts")
 
+    base = times[FIS]
     print()
-    print(f"{'what':<40} {'seconds':>9} {'peer / fissure':>15}")
-    for k, v in res.items():
-        ratio = "" if k.startswith(("fissure", "  ")) else f"{v / t_audit:>14.1f}x"
-        print(f"{k:<40} {v:>9.3f} {ratio:>15}")
+    print(f"{'what':<40} {'best s':>8} {'median s':>9} {'best/best':>10} {'paired median':>14}")
+    res = {}
+    for k, v in times.items():
+        peer = not k.startswith("fissure")
+        ratio = f"{v.min() / base.min():>9.1f}x" if peer else ""
+        paired = f"{np.median(v / base):>13.1f}x" if peer else ""
+        print(f"{k:<40} {v.min():>8.3f} {np.median(v):>9.3f} {ratio:>10} {paired:>14}")
+        res[k] = {"best": float(v.min()), "median": float(np.median(v)), "runs": v.tolist()}
+    print(f"{'  of which tally (last round)':<40} {r.timings['tally']:>8.3f}")
     print()
     goals = {"polars group_by": 3.0, "duckdb GROUPING SETS": 6.0}
     for k, goal in goals.items():
-        if k in res:
-            ratio = res[k] / t_audit
-            print(f"goal: fissure audit >= {goal:g}x faster than {k}: {ratio:.1f}x -> {'met' if ratio >= goal else 'NOT met'}")
-            ratio_auc = res[k] / t_auc
-            print(f"      (with per-slice ROC AUC included: {ratio_auc:.1f}x)")
+        if k in times:
+            best_ratio = times[k].min() / base.min()
+            paired = times[k] / base
+            print(f"goal: fissure audit >= {goal:g}x faster than {k}: best/best {best_ratio:.1f}x, "
+                  f"paired median {np.median(paired):.1f}x (rounds {paired.min():.1f}-{paired.max():.1f}x) -> "
+                  f"{'met' if best_ratio >= goal else 'NOT met'}")
+            print(f"      (with per-slice ROC AUC included: {times[k].min() / times[FIS_AUC].min():.1f}x)")
     print(f"slices in the audit: {len(r.slices):,}; tested {int((r.slices['status'] == 'tested').sum()):,}; "
           f"numba threads {audit.tally.numba.get_num_threads() if audit.tally.numba else 0}")
     if a.json:
