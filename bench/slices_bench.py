@@ -159,36 +159,36 @@ def main(argv=None) -> int:
     r = outs[FIS]
     sl = r.slices.set_index("slice")
 
-    def check(name, fam, key_values, counts):
-        slice_name = " & ".join(f"{c}={v}" for c, v in zip(fam, key_values))
-        got = sl.loc[slice_name, ["tp", "fp", "fn", "tn"]].to_numpy(dtype=np.int64)
-        if not np.array_equal(got, np.asarray(counts, dtype=np.int64)):
-            raise SystemExit(f"{name} disagrees with Fissure on {slice_name}: {counts} vs {got.tolist()}")
+    cells = ["tp", "fp", "fn", "tn"]
 
-    if "pandas groupby-sum" in outs:
-        checked = 0
-        for fam, g in outs["pandas groupby-sum"].items():
+    def pandas_rows(out):
+        for fam, g in out.items():
             for key, row in g.iterrows():
-                check("pandas", fam, key if isinstance(key, tuple) else (key,), row[["tp", "fp", "fn", "tn"]].tolist())
-                checked += 1
-        print(f"pandas peer: {checked:,} slices agree with Fissure's counts")
-    if "polars group_by" in outs:
-        checked = 0
-        for fam, g in outs["polars group_by"].items():
+                yield fam, key if isinstance(key, tuple) else (key,), row[cells].tolist()
+
+    def polars_rows(out):
+        for fam, g in out.items():
             for row in g.iter_rows(named=True):
-                check("polars", fam, [row[c] for c in fam], [row[v] for v in ("tp", "fp", "fn", "tn")])
-                checked += 1
-        print(f"polars peer: {checked:,} slices agree with Fissure's counts")
-    if "duckdb GROUPING SETS" in outs:
-        out = outs["duckdb GROUPING SETS"]
+                yield fam, [row[c] for c in fam], [row[v] for v in cells]
+
+    def duckdb_rows(out):
         keys = [f"a{i:02d}" for i in range(len(CARDS))]
-        present = out[keys].notna().to_numpy()
-        checked = 0
-        for (i, row), mask in zip(out.iterrows(), present):
+        for (_, row), mask in zip(out.iterrows(), out[keys].notna().to_numpy()):
             fam = tuple(k for k, m in zip(keys, mask) if m)
-            check("duckdb", fam, [row[c] for c in fam], [int(row[v]) for v in ("tp", "fp", "fn", "tn")])
+            yield fam, [row[c] for c in fam], [int(row[v]) for v in cells]
+
+    for name, rows in (("pandas groupby-sum", pandas_rows), ("polars group_by", polars_rows),
+                       ("duckdb GROUPING SETS", duckdb_rows)):
+        if name not in outs:
+            continue
+        checked = 0
+        for fam, key_values, counts in rows(outs[name]):
+            slice_name = " & ".join(f"{c}={v}" for c, v in zip(fam, key_values))
+            got = sl.loc[slice_name, cells].to_numpy(dtype=np.int64)
+            if not np.array_equal(got, np.asarray(counts, dtype=np.int64)):
+                raise SystemExit(f"{name} disagrees with Fissure on {slice_name}: {counts} vs {got.tolist()}")
             checked += 1
-        print(f"duckdb peer: {checked:,} slices agree with Fissure's counts")
+        print(f"{name.split()[0]} peer: {checked:,} slices agree with Fissure's counts")
 
     base = times[FIS]
     print()
