@@ -14,17 +14,18 @@ import numpy as np
 import pandas as pd
 
 from . import __version__
-from .auc import slice_auc
-from .compare import cohens_d, cohens_h, two_proportion, welch_p
-from .config import AuditConfig
-from .correct import CORRECTIONS, adjust
-from .encode import Attribute, choose_columns, encode_attributes
+from .core.auc import slice_auc
+from .stats.compare import cohens_d, cohens_h, two_proportion, welch_p
+from .settings import AuditConfig
+from .stats.correct import CORRECTIONS, adjust
+from .core.encoding import Attribute, choose_columns, encode_attributes
 from .errors import AuditInputError
-from .intake import Outcomes, SourceInfo, check_columns, read_outcomes
-from .intervals import INTERVALS, f1_interval, mean_interval, mover_difference, proportion_interval, welch_difference
-from .measure import METRICS, RATE_COLUMNS, RATES, count_frame, metric_values
-from .rank import flag_and_rank
-from .tally import plan_families, row_losses, tally
+from .core.outcomes import Outcomes, check_columns, read_outcomes
+from .core.read import SourceInfo
+from .stats.intervals import INTERVALS, f1_interval, mean_interval, mover_difference, proportion_interval, welch_difference
+from .stats.measure import METRICS, RATE_COLUMNS, RATES, count_frame, metric_values
+from .stats.rank import flag_and_rank
+from .core.tally import plan_families, row_losses, tally
 
 ALL = "(all)"
 Progress = Callable[[str, float], None]
@@ -452,7 +453,7 @@ def _audit(out: Outcomes, attrs: list[Attribute], skipped, cfg: AuditConfig, sou
                       positive_inferred=out.positive_inferred, prediction_source=out.prediction_source,
                       attributes=info, skipped=dict(skipped), family_size=m_family, timings=timings)
     if cfg.protected:
-        from .fairness import assess
+        from .stats.fairness import assess
 
         note("group fairness", 0.9)
         res = replace(res, fairness=assess(attrs, out, cfg))

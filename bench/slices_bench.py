@@ -38,7 +38,7 @@ import pandas as pd
 
 sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 import audit  # noqa: E402
-from audit.tally import row_losses  # noqa: E402
+from audit.core.tally import row_losses  # noqa: E402
 
 CARDS = [2, 3, 4, 5, 6, 7, 8, 10, 12, 3, 4, 50]
 
@@ -214,7 +214,7 @@ def main(argv=None) -> int:
             print(f"      with per-slice ROC AUC included: best/best {times[k].min() / times[FIS_AUC].min():.1f}x, "
                   f"paired median {np.median(paired_auc):.1f}x (rounds {paired_auc.min():.1f}-{paired_auc.max():.1f}x)")
     print(f"slices in the audit: {len(r.slices):,}; tested {int((r.slices['status'] == 'tested').sum()):,}; "
-          f"numba threads {audit.tally.numba.get_num_threads() if audit.tally.numba else 0}")
+          f"numba threads {audit.core.tally.numba.get_num_threads() if audit.core.tally.numba else 0}")
     if a.json:
         with open(a.json, "w") as fh:
             json.dump(res, fh, indent=2)

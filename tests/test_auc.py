@@ -3,8 +3,8 @@ import numpy as np
 import pytest
 from sklearn.metrics import roc_auc_score
 
-from audit.auc import _u_numpy, slice_auc
-from audit.tally import _layout, plan_families, tally
+from audit.core.auc import _u_numpy, slice_auc
+from audit.core.tally import _layout, plan_families, tally
 
 
 def _rows(score_kind: str, n: int = 120_000, seed: int = 21):

@@ -3,7 +3,7 @@ import numpy as np
 import pytest
 
 import audit
-from audit import charts
+from audit.faces import charts
 from conftest import random_table, slice_mask
 
 

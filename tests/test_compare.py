@@ -2,7 +2,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from audit.compare import cohens_h, fisher_two_sided, two_proportion, welch_p
+from audit.stats.compare import cohens_h, fisher_two_sided, two_proportion, welch_p
 
 
 def test_fisher_against_scipy():
@@ -38,7 +38,7 @@ def test_small_expected_counts_switch_to_fisher():
 def test_welch_p_against_scipy():
     rng = np.random.default_rng(9)
     a, b = rng.normal(0.2, 1, 35), rng.normal(0, 3, 80)
-    from audit.intervals import welch_difference
+    from audit.stats.intervals import welch_difference
 
     d, _, _, se, df, *_ = welch_difference(len(a), a.sum(), (a * a).sum(), len(b), b.sum(), (b * b).sum())
     ref = stats.ttest_ind_from_stats(a.mean(), a.std(ddof=1), len(a), b.mean(), b.std(ddof=1), len(b),

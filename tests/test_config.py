@@ -2,7 +2,7 @@ import tomllib
 
 import pytest
 
-from audit.config import AuditConfig, load_toml
+from audit.settings import AuditConfig, load_toml
 from audit.errors import AuditInputError
 
 

@@ -3,7 +3,7 @@ import pytest
 from scipy.stats import false_discovery_control
 from statsmodels.stats.multitest import multipletests
 
-from audit.correct import CORRECTIONS, adjust
+from audit.stats.correct import CORRECTIONS, adjust
 
 # Benjamini & Hochberg (1995), JRSS B 57:289, section 4.2: fifteen p-values of a clinical trial.
 BH95 = [0.0001, 0.0004, 0.0019, 0.0095, 0.0201, 0.0278, 0.0298, 0.0344, 0.0459, 0.3240, 0.4262, 0.5719,

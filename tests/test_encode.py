@@ -2,7 +2,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from audit.encode import MISSING, edge_labels, encode_attributes
+from audit.core.encoding import MISSING, edge_labels, encode_attributes
 from audit.errors import AuditInputError
 
 

@@ -2,7 +2,7 @@ import os
 
 import pytest
 
-from audit.export import neutralise, write_files
+from audit.faces.export import neutralise, write_files
 
 
 @pytest.mark.parametrize("cell,expected", [

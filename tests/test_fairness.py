@@ -6,7 +6,7 @@ import pytest
 
 import audit
 from audit.errors import AuditInputError
-from audit.fairness import chouldechova_fpr, four_fifths_below, scoring_rates
+from audit.stats.fairness import chouldechova_fpr, four_fifths_below, scoring_rates
 
 
 def groups_with_rates(rates, n=100):

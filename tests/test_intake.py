@@ -3,7 +3,8 @@ import pandas as pd
 import pytest
 
 from audit.errors import AuditInputError
-from audit.intake import read_outcomes, read_table
+from audit.core.outcomes import read_outcomes
+from audit.core.read import read_table
 
 
 def frame(**kw):

@@ -3,7 +3,7 @@ import pytest
 from scipy import stats
 from statsmodels.stats.proportion import confint_proportions_2indep, proportion_confint
 
-from audit.intervals import (clopper_pearson, f1_interval, mean_interval, mover_difference, welch_difference,
+from audit.stats.intervals import (clopper_pearson, f1_interval, mean_interval, mover_difference, welch_difference,
                              wilson)
 
 
@@ -106,7 +106,7 @@ def test_f1_interval_coverage_simulation():
 def test_t_quantile_against_scipy(level):
     # Reference: scipy.stats.t.ppf. Below 400 degrees of freedom t_quantile calls it; above, the
     # Abramowitz & Stegun (1964) 26.7.5 expansion must agree within 1e-10.
-    from audit.intervals import T_SERIES_MIN_DF, t_quantile
+    from audit.stats.intervals import T_SERIES_MIN_DF, t_quantile
 
     df = np.r_[1.0, 2.5, 30.0, 399.0, np.arange(T_SERIES_MIN_DF, T_SERIES_MIN_DF + 3000.0),
                10 ** np.linspace(np.log10(T_SERIES_MIN_DF), 9, 400), np.inf]

@@ -6,7 +6,7 @@ from sklearn import metrics as skm
 
 import audit
 from conftest import slice_mask
-from audit.measure import count_frame, metric_values
+from audit.stats.measure import count_frame, metric_values
 
 
 def test_every_metric_matches_sklearn_for_random_slices(demo_df):

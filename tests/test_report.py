@@ -13,7 +13,7 @@ import pandas as pd
 import pytest
 
 from conftest import ROOT, random_table
-from audit.report import SECTIONS
+from audit.faces.report import SECTIONS
 
 HOSTILE = "<img src=x onerror=\"window.__pwned=1\">"
 
@@ -120,7 +120,7 @@ def test_deterministic_apart_from_the_date_line(demo_run, tmp_path):
 
 def test_summary_validates_against_shipped_schema(demo_run):
     jsonschema = pytest.importorskip("jsonschema")
-    schema = json.load(open(os.path.join(ROOT, "audit", "summary.schema.json")))
+    schema = json.load(open(os.path.join(ROOT, "audit", "faces", "summary.schema.json")))
     summary = json.load(open(demo_run / "out" / "summary.json"))
     jsonschema.validate(summary, schema)
     assert summary["model"] == {"name": "Personal-loan delinquency", "version": "3.2", "intended_use": "credit decisions"}

@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 from sklearn.metrics import confusion_matrix
 
-from audit.tally import plan_families, row_losses, tally, tally_numpy
+from audit.core.tally import plan_families, row_losses, tally, tally_numpy
 
 
 @pytest.fixture(scope="module")

@@ -18,14 +18,15 @@ ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 if ROOT not in sys.path:
     sys.path.insert(0, ROOT)
 
-from audit import charts  # noqa: E402
-from audit.correct import CORRECTIONS  # noqa: E402
+from audit.faces import charts  # noqa: E402
+from ui import fairness_view  # noqa: E402
+from audit.stats.correct import CORRECTIONS  # noqa: E402
 from audit.engine import ALL, run  # noqa: E402
 from audit.errors import AuditInputError  # noqa: E402
-from audit.export import slices_csv, summary_json  # noqa: E402
-from audit.intake import read_table  # noqa: E402
-from audit.intervals import INTERVALS  # noqa: E402
-from audit.measure import METRICS  # noqa: E402
+from audit.faces.export import fairness_csv, slices_csv, summary_json  # noqa: E402
+from audit.core.read import read_table  # noqa: E402
+from audit.stats.intervals import INTERVALS  # noqa: E402
+from audit.stats.measure import METRICS  # noqa: E402
 
 MAX_UPLOAD_MB = 150
 DEMO_PATH = os.path.join(ROOT, "demo", "predictions.csv")
@@ -59,7 +60,7 @@ def audit_cached(data: bytes, name: str, settings: tuple):
 
 @st.cache_data(show_spinner=False, max_entries=4)
 def report_cached(data: bytes, name: str, settings: tuple) -> str:
-    from audit.report import build_html
+    from audit.faces.report import build_html
 
     return build_html(audit_cached(data, name, settings), command=None)
 
@@ -326,12 +327,10 @@ st.plotly_chart(charts.noise_band(result), key="noise")
 
 # ----------------------------------------------------------------------------- fairness
 if result.fairness is not None:
-    from audit.fairness import page_section
-
     st.header("8 · Group fairness")
     st.caption(SENSITIVE + " The four-fifths rule is a US rule of thumb from employment-selection guidelines, not a "
                "legal test everywhere.")
-    page_section(result.fairness, st)
+    fairness_view.show(result.fairness, st)
 
 # ----------------------------------------------------------------------------- downloads
 st.header("Take the results away")
@@ -339,11 +338,11 @@ d1, d2, d3, d4 = st.columns(4)
 d1.download_button("slices.csv", slices_csv(result), "slices.csv", "text/csv", key="dl_slices")
 d2.download_button("summary.json", summary_json(result), "summary.json", "application/json", key="dl_summary")
 if result.fairness is not None:
-    d3.download_button("fairness.csv", result.fairness.to_csv(), "fairness.csv", "text/csv", key="dl_fair")
+    d3.download_button("fairness.csv", fairness_csv(result), "fairness.csv", "text/csv", key="dl_fair")
 report_html = report_cached(data, name, key)
 d4.download_button("report.html", report_html.encode("utf-8"), "report.html", "text/html", key="dl_report")
 if st.checkbox("Also prepare the report as PDF (needs Chromium on the server)", key="want_pdf"):
-    from audit.report import html_to_pdf
+    from audit.faces.report import html_to_pdf
 
     pdf, why = html_to_pdf(report_html)
     if pdf is None:

@@ -179,3 +179,29 @@ def welch_difference(n1, s1, ss1, n2, s2, ss2, *, level: float = 0.95):
         t = t_quantile(0.5 + level / 2, df)
         d = m1 - m2
     return d, d - t * se, d + t * se, se, df, v1, v2
+
+
+def chance_band(result, sizes) -> tuple[np.ndarray, np.ndarray]:
+    """Where the audited metric of a slice of each size in ``sizes`` would fall by chance alone
+    if the slice behaved like the whole table (normal approximation, before any correction).
+
+    Rates: the binomial spread of the whole table's rate among n × (share of rows in the metric's
+    denominator) rows. Mean losses: the median per-row standard deviation recovered from the tested
+    slices' t intervals, divided by √n.
+    """
+    t = result.tested()
+    m = result.metric
+    centre = result.overall.get(m.name)
+    ns = np.asarray(sizes, dtype=float)
+    z = _z(result.config.level)
+    if m.kind == "mean":
+        sd = float(np.nanmedian(np.sqrt(t["n"]) * (t["metric_high"] - t["metric_low"]) / (2 * z)))
+        half = z * sd / np.sqrt(ns)
+    else:
+        whole = result.slices.iloc[0]
+        den = {"n": whole["n"], "actual_pos": whole["actual_pos"], "actual_neg": whole["n"] - whole["actual_pos"],
+               "pred_pos": whole["pred_pos"], "pred_neg": whole["n"] - whole["pred_pos"],
+               "tp_fp_fn": whole["tp"] + whole["fp"] + whole["fn"]}[m.denominator]
+        share = max(float(den) / float(whole["n"]), 1e-9)
+        half = z * np.sqrt(centre * (1 - centre) / (ns * share))
+    return centre - half, centre + half

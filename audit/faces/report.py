@@ -16,7 +16,7 @@ import plotly
 import plotly.io as pio
 
 from . import charts
-from .export import method_notes
+from .prose import method_notes
 
 SECTIONS = [
     ("identity", "1. Audit identity"),
@@ -30,7 +30,7 @@ SECTIONS = [
     ("reproduce", "9. Reproducing this audit"),
 ]
 
-from .export import CAUTION, limitations  # noqa: E402  (wording shared with summary.json)
+from .prose import CAUTION, limitations  # noqa: E402  (wording shared with summary.json)
 
 CSS = """
 :root { --ink:#1d3557; --flag:#d1651f; --muted:#5c6470; --rule:#d5dae1; }
@@ -200,9 +200,7 @@ def build_html(result, *, command: str | None = None, created: str | None = None
 
     # 5. fairness
     if result.fairness is not None:
-        from .fairness import report_section
-
-        parts.append(_section("fairness", report_section(result.fairness, e=e, f=_f, p=_p, figure=_figure)))
+        parts.append(_section("fairness", _fairness_section(result.fairness, e=e, f=_f, p=_p, figure=_figure)))
     else:
         parts.append(_section("fairness", "<p>No protected attributes were named for this audit "
                                           "(<code>--protected</code>), so no group-fairness criteria were checked.</p>"))
@@ -288,3 +286,39 @@ def html_to_pdf(html_text: str, *, timeout: float = 120.0) -> tuple[bytes | None
             return None, "PDF not written: Chromium produced no file; HTML written"
         with open(out, "rb") as fh:
             return fh.read(), None
+
+
+def _fairness_section(fr, *, e, f, p, figure) -> str:
+    parts = [f"<p>Favourable outcome: predicted <b>{e(fr.favorable)}</b>"
+             + (" (the positive prediction)" if fr.favorable_is_positive else "")
+             + f". Reference group per attribute: the one with the highest selection rate unless chosen. Groups "
+               f"under {fr.min_group_share:.0%} of rows, and rows with a missing protected value, are counted but left "
+               f"out of ratios and tests. Differences are tested against the reference group and corrected over "
+               f"{fr.family_size} tests. The four-fifths check (29 CFR 1607.4(D)) is exact: a ratio of exactly 4/5 is "
+               f"not below it. It is a US rule of thumb from employment selection, not a legal test everywhere.</p>"]
+    if fr.missing:
+        parts.append("<p>Rows with a missing protected value: "
+                     + "; ".join(f"{e(k)}: {v:,}" for k, v in fr.missing.items()) + ".</p>")
+    for note in fr.notes:
+        parts.append(f"<p class='muted'>{e(note)}</p>")
+    header = ["attribute", "group", "n", "selection rate", "impact ratio", "below 4/5", "TPR", "FPR", "PPV",
+              "equalized-odds gap", "adjusted p (selection)", "left out"]
+    rows = []
+    for _, r in fr.groups.iterrows():
+        below = "<span class='flag'>yes</span>" if r["below_four_fifths"] else "no"
+        rows.append([e(r["attribute"]), e(r["group"]) + (" (reference)" if r["is_reference"] else ""),
+                     f"{int(r['n']):,}", f(r["selection_rate"]), f(r["impact_ratio"], 3), below, f(r["tpr"]),
+                     f(r["fpr"]), f(r["ppv"]), f(r["equalized_odds_gap"]), p(r.get("selection_q")),
+                     e(r["exclusion_reason"]) if r["excluded"] else ""])
+    out = ["<table><thead><tr>" + "".join(f"<th>{e(h)}</th>" for h in header) + "</tr></thead><tbody>"]
+    out += ["<tr>" + "".join(f"<td>{c}</td>" for c in row) + "</tr>" for row in rows]
+    out.append("</tbody></table>")
+    parts.append("".join(out))
+    for i, attr in enumerate(dict.fromkeys(fr.groups["attribute"])):
+        if " & " in attr:
+            continue
+        parts.append(figure(charts.selection_rates(fr.groups, attr), f"fig-fair-sel-{i}"))
+        parts.append(figure(charts.error_rate_balance(fr.groups, attr), f"fig-fair-eo-{i}"))
+    parts.append("<p>The full table, with intervals, p-values and calibration columns, is in "
+                 "<code>fairness.csv</code>.</p>")
+    return "".join(parts)

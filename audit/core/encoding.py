@@ -13,7 +13,7 @@ from typing import Iterable, Mapping, Sequence
 import numpy as np
 import pandas as pd
 
-from .errors import AuditInputError
+from ..errors import AuditInputError
 from .tally import small_histogram
 
 MISSING = "(missing)"

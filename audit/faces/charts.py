@@ -8,7 +8,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import plotly.graph_objects as go
-from scipy import stats
+
+from ..stats.intervals import chance_band
 
 
 #: Fissure's palette (blue/orange contrast stays distinct under the common colour-vision deficiencies).
@@ -130,14 +131,7 @@ def noise_band(result, *, width: int | None = None) -> go.Figure:
     overall = result.overall.get(m.name)
     if len(t) and overall is not None:
         ns = np.unique(np.geomspace(max(2, t["n"].min()), t["n"].max(), 80).round())
-        z = stats.norm.ppf(0.5 + result.config.level / 2)
-        if m.kind == "mean":
-            sd = float(np.nanmedian(np.sqrt(t["n"]) * (t["metric_high"] - t["metric_low"]) / (2 * z)))
-            half = z * sd / np.sqrt(ns)
-        else:
-            # Binomial spread of a rate among n × (share of rows in the denominator) rows.
-            half = z * np.sqrt(overall * (1 - overall) / (ns * _support_share(result)))
-        lo, hi = overall - half, overall + half
+        lo, hi = chance_band(result, ns)
         fig.add_trace(go.Scatter(x=np.r_[ns, ns[::-1]], y=np.r_[hi, lo[::-1]], fill="toself",
                                  fillcolor=PALETTE["band"], line={"width": 0}, hoverinfo="skip",
                                  name=f"{int(round(result.config.level * 100))}% range by chance alone"))
@@ -155,16 +149,6 @@ def noise_band(result, *, width: int | None = None) -> go.Figure:
     fig.update_yaxes(title=_metric_title(result), gridcolor=PALETTE["grid"])
     return _layout(fig, title=f"Where noise ends: {_metric_title(result)} against slice size", width=width,
                    height=420)
-
-
-def _support_share(result) -> float:
-    """Share of a slice's rows that enter the metric's denominator, from the whole table."""
-    m = result.metric
-    whole = result.slices.iloc[0]
-    den = {"n": whole["n"], "actual_pos": whole["actual_pos"], "actual_neg": whole["n"] - whole["actual_pos"],
-           "pred_pos": whole["pred_pos"], "pred_neg": whole["n"] - whole["pred_pos"],
-           "tp_fp_fn": whole["tp"] + whole["fp"] + whole["fn"]}[m.denominator]
-    return max(float(den) / float(whole["n"]), 1e-9)
 
 
 def worst_pair(result) -> tuple[str, str] | None:

@@ -12,12 +12,12 @@ import sys
 from dataclasses import fields
 from typing import Any, Sequence
 
-from . import __version__
-from .config import AuditConfig, load_toml
-from .correct import CORRECTIONS
-from .errors import AuditInputError
-from .intervals import INTERVALS
-from .measure import METRICS
+from .. import __version__
+from ..settings import AuditConfig, load_toml
+from ..stats.correct import CORRECTIONS
+from ..errors import AuditInputError
+from ..stats.intervals import INTERVALS
+from ..stats.measure import METRICS
 
 EXIT_OK, EXIT_GATE, EXIT_INPUT = 0, 1, 2
 
@@ -199,9 +199,9 @@ def gate(result, *, on_flag: bool, gap: float | None) -> str | None:
 
 
 def audit_command(args: argparse.Namespace, argv: Sequence[str]) -> int:
-    from .engine import run
-    from .export import slices_csv, summary_json, write_files
-    from .intake import read_table
+    from ..engine import run
+    from .export import fairness_csv, slices_csv, summary_json, write_files
+    from ..core.read import read_table
 
     settings = settings_from(args)
     bar = _Bar(not args.quiet)
@@ -212,7 +212,7 @@ def audit_command(args: argparse.Namespace, argv: Sequence[str]) -> int:
         bar.close()
     files = {"slices.csv": slices_csv(result), "summary.json": summary_json(result)}
     if result.fairness is not None:
-        files["fairness.csv"] = result.fairness.to_csv()
+        files["fairness.csv"] = fairness_csv(result)
     command = "fissure " + " ".join(shlex.quote(a) for a in argv)
     pdf_note = None
     if not args.no_report:

@@ -26,8 +26,8 @@ import pandas as pd
 
 from .compare import two_proportion
 from .correct import adjust
-from .encode import MISSING
-from .errors import AuditInputError
+from ..core.encoding import MISSING
+from ..errors import AuditInputError
 from .intervals import mover_difference, proportion_interval
 from .measure import ratio
 
@@ -47,11 +47,6 @@ class FairnessResult:
     median_score: float | None
     family_size: int
     notes: list[str] = field(default_factory=list)
-
-    def to_csv(self) -> bytes:
-        from .export import frame_csv
-
-        return frame_csv(self.groups)
 
     def to_summary(self) -> dict[str, Any]:
         recs = []
@@ -108,7 +103,7 @@ def assess(attrs, outcomes, cfg) -> FairnessResult:
     if cfg.favorable is None:
         fav_pos = True
     else:
-        from .intake import canonical
+        from ..core.outcomes import canonical
 
         fv = canonical(cfg.favorable)
         if fv not in classes:
@@ -289,68 +284,3 @@ def _notes(groups: pd.DataFrame, cfg) -> list[str]:
             notes.append(f"{attr}: {len(ex)} group(s) left out of ratios and tests ("
                          + "; ".join(f"{x} — {r}" for x, r in zip(ex["group"], ex["exclusion_reason"])) + ").")
     return notes
-
-
-FAIR_COLUMNS = ["attribute", "group", "n", "share", "selection_rate", "impact_ratio", "below_four_fifths", "tpr",
-                "fpr", "ppv", "tpr_diff", "fpr_diff", "equalized_odds_gap", "ppv_diff", "selection_q", "excluded",
-                "exclusion_reason"]
-
-
-def page_section(fr: FairnessResult, st) -> None:
-    """Show the fairness view on the page (``st`` is the streamlit module)."""
-    from . import charts
-
-    st.markdown(f"Favourable outcome: predicted **{fr.favorable}**"
-                + (" (the positive prediction)" if fr.favorable_is_positive else "")
-                + f". Groups under {fr.min_group_share:.0%} of rows are shown but left out of ratios.")
-    for note in fr.notes:
-        st.caption(note)
-    attrs = list(dict.fromkeys(fr.groups["attribute"]))
-    pick = st.selectbox("Protected attribute or intersection", attrs, key="fair_attr")
-    a, b = st.columns(2)
-    a.plotly_chart(charts.selection_rates(fr.groups, pick), key="fair_sel")
-    b.plotly_chart(charts.error_rate_balance(fr.groups, pick), key="fair_eo")
-    cols = [c for c in FAIR_COLUMNS if c in fr.groups.columns]
-    st.dataframe(fr.groups.loc[fr.groups["attribute"] == pick, cols], hide_index=True, width="stretch")
-    if any(" & " in x for x in attrs):
-        st.markdown("**Intersectional groups**")
-        inter = fr.groups[fr.groups["attribute"].str.contains(" & ", regex=False)]
-        st.dataframe(inter[cols], hide_index=True, width="stretch")
-
-
-def report_section(fr: FairnessResult, *, e, f, p, figure) -> str:
-    from . import charts
-
-    parts = [f"<p>Favourable outcome: predicted <b>{e(fr.favorable)}</b>"
-             + (" (the positive prediction)" if fr.favorable_is_positive else "")
-             + f". Reference group per attribute: the one with the highest selection rate unless chosen. Groups "
-               f"under {fr.min_group_share:.0%} of rows, and rows with a missing protected value, are counted but left "
-               f"out of ratios and tests. Differences are tested against the reference group and corrected over "
-               f"{fr.family_size} tests. The four-fifths check (29 CFR 1607.4(D)) is exact: a ratio of exactly 4/5 is "
-               f"not below it. It is a US rule of thumb from employment selection, not a legal test everywhere.</p>"]
-    if fr.missing:
-        parts.append("<p>Rows with a missing protected value: "
-                     + "; ".join(f"{e(k)}: {v:,}" for k, v in fr.missing.items()) + ".</p>")
-    for note in fr.notes:
-        parts.append(f"<p class='muted'>{e(note)}</p>")
-    header = ["attribute", "group", "n", "selection rate", "impact ratio", "below 4/5", "TPR", "FPR", "PPV",
-              "equalized-odds gap", "adjusted p (selection)", "left out"]
-    rows = []
-    for _, r in fr.groups.iterrows():
-        below = "<span class='flag'>yes</span>" if r["below_four_fifths"] else "no"
-        rows.append([e(r["attribute"]), e(r["group"]) + (" (reference)" if r["is_reference"] else ""),
-                     f"{int(r['n']):,}", f(r["selection_rate"]), f(r["impact_ratio"], 3), below, f(r["tpr"]),
-                     f(r["fpr"]), f(r["ppv"]), f(r["equalized_odds_gap"]), p(r.get("selection_q")),
-                     e(r["exclusion_reason"]) if r["excluded"] else ""])
-    out = ["<table><thead><tr>" + "".join(f"<th>{e(h)}</th>" for h in header) + "</tr></thead><tbody>"]
-    out += ["<tr>" + "".join(f"<td>{c}</td>" for c in row) + "</tr>" for row in rows]
-    out.append("</tbody></table>")
-    parts.append("".join(out))
-    for i, attr in enumerate(dict.fromkeys(fr.groups["attribute"])):
-        if " & " in attr:
-            continue
-        parts.append(figure(charts.selection_rates(fr.groups, attr), f"fig-fair-sel-{i}"))
-        parts.append(figure(charts.error_rate_balance(fr.groups, attr), f"fig-fair-eo-{i}"))
-    parts.append("<p>The full table, with intervals, p-values and calibration columns, is in "
-                 "<code>fairness.csv</code>.</p>")
-    return "".join(parts)
