@@ -17,7 +17,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats
+
+from .methods import TEST_METHODS
 
 #: Expected cell count under which Fisher's exact test replaces the z test.
 MIN_EXPECTED = 5.0
@@ -31,13 +32,21 @@ class TestMethod:
     reference: str
 
 
+#: Slice-versus-rest tests: the registry ``methods.TEST_METHODS`` with the metric kinds each serves.
 TESTS: dict[str, TestMethod] = {
-    "z": TestMethod("z", "two-proportion z test (pooled)", ("rate", "f1"),
-                    "equivalent to Pearson's chi-square without continuity correction"),
-    "fisher": TestMethod("fisher", "Fisher's exact test, two-sided", ("rate", "f1"),
-                         "Fisher (1935); used when an expected count is below 5"),
-    "welch": TestMethod("welch", "Welch's t test", ("mean",), "Welch (1947)"),
-}
+    k: TestMethod(k, m.title, tuple(m.detail.split()), m.reference) for k, m in TEST_METHODS.items()}
+
+
+def _log_choose(a, b):
+    from scipy.special import gammaln
+
+    return gammaln(a + 1.0) - gammaln(b + 1.0) - gammaln(a - b + 1.0)
+
+
+def _hypergeom_logpmf(x, total, good, draws):
+    # ln P(X = x) for X ~ hypergeometric(total, good, draws): C(good, x) C(total - good, draws - x) / C(total, draws)
+    x, total, good, draws = (np.asarray(v, dtype=float) for v in (x, total, good, draws))
+    return _log_choose(good, x) + _log_choose(total - good, draws - x) - _log_choose(total, draws)
 
 
 def fisher_two_sided(a, row1, col1, total) -> np.ndarray:
@@ -69,8 +78,8 @@ def fisher_two_sided(a, row1, col1, total) -> np.ndarray:
             x = lo[idx, None] + np.arange(wmax)[None, :]
             valid = x <= hi[idx, None]
             xs = np.where(valid, x, lo[idx, None])
-            logp = stats.hypergeom.logpmf(xs, total[idx, None], col1[idx, None], row1[idx, None])
-            obs = stats.hypergeom.logpmf(a[idx], total[idx], col1[idx], row1[idx])
+            logp = _hypergeom_logpmf(xs, total[idx, None], col1[idx, None], row1[idx, None])
+            obs = _hypergeom_logpmf(a[idx], total[idx], col1[idx], row1[idx])
             keep = valid & (logp <= obs[:, None] + np.log1p(1e-7))
             pm = np.where(keep, np.exp(logp - obs[:, None]), 0.0).sum(axis=1) * np.exp(obs)
             out[idx] = np.minimum(pm, 1.0)
@@ -89,7 +98,7 @@ def two_proportion(k1, n1, k2, n2):
         pool = K / N
         se = np.sqrt(pool * (1 - pool) * (1 / n1 + 1 / n2))
         z = (k1 / n1 - k2 / n2) / se
-        p = 2 * stats.norm.sf(np.abs(z))
+        p = 2 * _normal_sf(np.abs(z))
         expected = np.minimum.reduce([n1 * K / N, n1 * (N - K) / N, n2 * K / N, n2 * (N - K) / N])
     p = np.where(se == 0, 1.0, p)  # no events or no non-events anywhere: nothing differs
     defined = (n1 > 0) & (n2 > 0)
@@ -102,10 +111,18 @@ def two_proportion(k1, n1, k2, n2):
     return p, method
 
 
+def _normal_sf(z):
+    from scipy.special import ndtr
+
+    return ndtr(-z)
+
+
 def welch_p(d, se, df):
+    from scipy.special import stdtr  # Student t distribution function
+
     with np.errstate(invalid="ignore", divide="ignore"):
         t = d / se
-        p = 2 * stats.t.sf(np.abs(t), df)
+        p = 2 * stdtr(df, -np.abs(t))
     return np.where(se == 0, np.where(d == 0, 1.0, 0.0), p)
 
 

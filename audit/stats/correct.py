@@ -10,6 +10,8 @@ from typing import Callable
 
 import numpy as np
 
+from .methods import CORRECTION_METHODS
+
 
 def _bh(p: np.ndarray, *, dependent: bool = False) -> np.ndarray:
     # Benjamini & Hochberg (1995), step-up; Benjamini & Yekutieli (2001) for dependence.
@@ -43,17 +45,15 @@ class Correction:
     reference: str
 
 
-#: Multiple-testing corrections (``--correction``); CLI, page and report read this table.
-CORRECTIONS: dict[str, Correction] = {
-    "bh": Correction("bh", "Benjamini-Hochberg", "false discovery rate (independent or positively dependent tests)",
-                     _bh, "Benjamini & Hochberg (1995), JRSS B 57:289-300"),
-    "by": Correction("by", "Benjamini-Yekutieli", "false discovery rate under any dependence",
-                     lambda p: _bh(p, dependent=True), "Benjamini & Yekutieli (2001), Ann. Statist. 29:1165-1188"),
-    "holm": Correction("holm", "Holm", "family-wise error rate", _holm, "Holm (1979), Scand. J. Statist. 6:65-70"),
-    "bonferroni": Correction("bonferroni", "Bonferroni", "family-wise error rate",
-                             lambda p: np.minimum(p * len(p), 1.0), "Bonferroni (1936); Dunn (1961)"),
-    "none": Correction("none", "no correction", "per-test error rate only", lambda p: p.copy(), "-"),
+_FUNCS: dict[str, Callable[[np.ndarray], np.ndarray]] = {
+    "bh": _bh, "by": lambda p: _bh(p, dependent=True), "holm": _holm,
+    "bonferroni": lambda p: np.minimum(p * len(p), 1.0), "none": lambda p: p.copy(),
 }
+
+#: Multiple-testing corrections (``--correction``): the registry ``methods.CORRECTION_METHODS``
+#: with each method's implementation.
+CORRECTIONS: dict[str, Correction] = {
+    k: Correction(k, m.title, m.detail, _FUNCS[k], m.reference) for k, m in CORRECTION_METHODS.items()}
 
 
 def adjust(p_values, *, method: str = "bh") -> tuple[np.ndarray, int]:

@@ -7,15 +7,17 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from functools import lru_cache
+from statistics import NormalDist
 from typing import Callable
 
 import numpy as np
-from scipy import stats
+
+from .methods import INTERVAL_METHODS
 
 
 @lru_cache(maxsize=64)
 def _normal_quantile(q: float) -> float:
-    return float(stats.norm.ppf(q))
+    return NormalDist().inv_cdf(q)  # Wichura (1988), algorithm AS 241: full double precision
 
 
 def _z(level: float) -> float:
@@ -53,7 +55,9 @@ def t_quantile(q: float, df) -> np.ndarray:
         out = x + inv * (g1 + inv * (g2 + inv * (g3 + inv * g4)))
     small = ~(df >= T_SERIES_MIN_DF)  # NaN df goes to scipy too, which returns NaN
     if small.any():
-        out[small] = stats.t.ppf(q, df[small])
+        from scipy.special import stdtrit  # loaded when first needed: a command line starts faster
+
+        out[small] = stdtrit(df[small], q)
     return out.reshape(shape)
 
 
@@ -96,10 +100,12 @@ def clopper_pearson(k, n, *, level: float = 0.95):
     """Clopper-Pearson 'exact' interval from beta quantiles (Clopper & Pearson 1934)."""
     k = np.asarray(k, dtype=float)
     n = np.asarray(n, dtype=float)
+    from scipy.special import betaincinv  # the beta quantile
+
     a = (1 - level) / 2
     with np.errstate(invalid="ignore", divide="ignore"):
-        lo = np.where(k > 0, stats.beta.ppf(a, k, n - k + 1), 0.0)
-        hi = np.where(k < n, stats.beta.ppf(1 - a, k + 1, n - k), 1.0)
+        lo = np.where(k > 0, betaincinv(np.maximum(k, 1e-300), n - k + 1, a), 0.0)
+        hi = np.where(k < n, betaincinv(k + 1, np.maximum(n - k, 1e-300), 1 - a), 1.0)
     bad = ~(n > 0)
     return np.where(bad, np.nan, lo), np.where(bad, np.nan, hi)
 
@@ -112,12 +118,12 @@ class IntervalMethod:
     reference: str
 
 
-#: Interval methods for proportions (``--interval``); CLI help and the page read this table.
+_FUNCS = {"wilson": wilson, "clopper-pearson": clopper_pearson}
+
+#: Interval methods for proportions (``--interval``): the registry ``methods.INTERVAL_METHODS`` with
+#: each method's implementation.
 INTERVALS: dict[str, IntervalMethod] = {
-    "wilson": IntervalMethod("wilson", "Wilson score", wilson, "Wilson (1927); Newcombe (1998)"),
-    "clopper-pearson": IntervalMethod("clopper-pearson", "Clopper-Pearson exact", clopper_pearson,
-                                      "Clopper & Pearson (1934)"),
-}
+    k: IntervalMethod(k, m.title, _FUNCS[k], m.reference) for k, m in INTERVAL_METHODS.items()}
 
 
 def proportion_interval(k, n, *, method: str = "wilson", level: float = 0.95):

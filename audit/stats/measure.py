@@ -8,70 +8,12 @@ Cell layout (binary): ``cell = y * 2 + yhat`` so ``tn, fp, fn, tp = counts[:, 0.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
-
 import numpy as np
 
 
-@dataclass(frozen=True)
-class Metric:
-    """One auditable metric.
+from .methods import EXTRA_FORMULAS, METRICS, RATES, Metric  # noqa: F401  (re-exported)
 
-    ``kind`` is ``"rate"`` (a proportion ``numerator / denominator`` of counts), ``"f1"``
-    or ``"mean"`` (a mean per-row loss); ``support`` names the count a slice needs enough
-    of for the metric to be tested; ``higher_is_worse`` fixes the bad direction.
-    """
-
-    name: str
-    title: str
-    kind: str
-    higher_is_worse: bool
-    numerator: str | None
-    denominator: str
-    formula: str
-    needs_score: bool = False
-
-
-def _m(*a, **k):
-    return Metric(*a, **k)
-
-
-#: The metrics a slice can be audited on (``--metric``). Error rate is the default: it is
-#: defined on every row, so every slice with enough rows can be tested, and it counts both
-#: kinds of mistake.
-METRICS: dict[str, Metric] = {m.name: m for m in [
-    _m("error_rate", "error rate", "rate", True, "errors", "n", "(fp + fn) / n"),
-    _m("accuracy", "accuracy", "rate", False, "correct", "n", "(tp + tn) / n"),
-    _m("recall", "recall (true-positive rate)", "rate", False, "tp", "actual_pos", "tp / (tp + fn)"),
-    _m("precision", "precision (positive predictive value)", "rate", False, "tp", "pred_pos", "tp / (tp + fp)"),
-    _m("specificity", "specificity (true-negative rate)", "rate", False, "tn", "actual_neg", "tn / (tn + fp)"),
-    _m("fpr", "false-positive rate", "rate", True, "fp", "actual_neg", "fp / (fp + tn)"),
-    _m("fnr", "false-negative rate", "rate", True, "fn", "actual_pos", "fn / (fn + tp)"),
-    _m("npv", "negative predictive value", "rate", False, "tn", "pred_neg", "tn / (tn + fn)"),
-    _m("f1", "F1 of the positive class", "f1", False, "tp", "tp_fp_fn", "2 tp / (2 tp + fp + fn)"),
-    _m("log_loss", "mean log loss", "mean", True, None, "n",
-       "-(1/n) Σ [y ln p + (1 - y) ln(1 - p)], p clipped to [1e-15, 1 - 1e-15]", True),
-    _m("brier", "Brier score", "mean", True, None, "n", "(1/n) Σ (p - y)²", True),
-]}
-
-#: Every rate reported (with an interval) for every slice, in output order: name -> (numerator,
-#: denominator), both named counts of ``count_frame``.
-RATES: dict[str, tuple[str, str]] = {
-    "accuracy": ("correct", "n"), "error_rate": ("errors", "n"), "precision": ("tp", "pred_pos"),
-    "recall": ("tp", "actual_pos"), "specificity": ("tn", "actual_neg"), "fpr": ("fp", "actual_neg"),
-    "fnr": ("fn", "actual_pos"), "npv": ("tn", "pred_neg"), "selection_rate": ("pred_pos", "n"),
-    "base_rate": ("actual_pos", "n"),
-}
 RATE_COLUMNS = list(RATES)
-
-EXTRA_FORMULAS = {
-    "selection_rate": "(tp + fp) / n  (share predicted positive)",
-    "base_rate": "(tp + fn) / n  (share actually positive)",
-    "f1_neg": "2 tn / (2 tn + fn + fp)",
-    "macro_f1": "(f1 + f1_neg) / 2",
-    "jaccard": "tp / (tp + fp + fn)",
-    "roc_auc": "P(score of a positive > score of a negative) + ½ P(tie), within the slice",
-}
 
 
 def ratio(num, den) -> np.ndarray:
