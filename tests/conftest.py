@@ -130,3 +130,41 @@ def app_url(tmp_path_factory):
         proc.wait(timeout=10)
     except subprocess.TimeoutExpired:
         proc.kill()
+
+
+# ----------------------------------------------------------------------------- CLI in-process
+class CliRun:
+    """What one in-process call of the CLI's ``main()`` returned and printed."""
+
+    def __init__(self, returncode: int, stdout: str, stderr: str):
+        self.returncode, self.stdout, self.stderr = returncode, stdout, stderr
+
+    def __repr__(self):
+        return f"CliRun(returncode={self.returncode!r}, stdout={self.stdout!r}, stderr={self.stderr!r})"
+
+
+@pytest.fixture
+def fissure_main(capsys, monkeypatch):
+    """Call ``fissure ARGS...`` in this process: ``fissure_main("audit", path, ..., cwd=dir)``.
+
+    argparse errors leave through ``SystemExit``; its code becomes ``returncode`` (a string code
+    is printed to stderr and gives 1, as the interpreter does), so a caller sees what a shell sees.
+    """
+    from audit.faces.cli import main
+
+    def call(*args, cwd=None) -> CliRun:
+        if cwd is not None:
+            monkeypatch.chdir(cwd)
+        capsys.readouterr()
+        extra = ""
+        try:
+            code = main([str(a) for a in args])
+        except SystemExit as exc:
+            if exc.code is None or isinstance(exc.code, int):
+                code = exc.code or 0
+            else:
+                code, extra = 1, f"{exc.code}\n"
+        out, err = capsys.readouterr()
+        return CliRun(code, out, err + extra)
+
+    return call

@@ -1,23 +1,30 @@
-"""The command line end to end, in a real subprocess, on the demo and on bad input."""
+"""The command line: one real process end to end on the demo; everything else through the CLI's
+``main()`` in this process (the ``fissure_main`` fixture), bad input included."""
 import json
 import os
+import runpy
 import subprocess
 import sys
+from importlib import metadata
 
 import pandas as pd
 import pytest
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+DEMO_ARGS = ["--label", "delinquent", "--score", "p_delinquent", "--no-report"]
 
 
-def fissure(*args, cwd=None):
-    return subprocess.run([sys.executable, "-m", "audit", *args], capture_output=True, text=True, cwd=cwd or ROOT,
-                          env={**os.environ, "PYTHONPATH": ROOT})
+def console_script():
+    """The installed ``fissure`` command, or ``python -m audit`` when it is not installed."""
+    exe = os.path.join(os.path.dirname(sys.executable), "fissure")
+    return [exe] if os.path.exists(exe) else [sys.executable, "-m", "audit"]
 
 
-def test_demo_end_to_end(demo_csv, tmp_path):
+def test_demo_end_to_end(demo_csv, tmp_path, monkeypatch, capsys):
+    # The one true process run: the installed command, as a user would type it.
     out = tmp_path / "out"
-    r = fissure("audit", demo_csv, "--label", "delinquent", "--score", "p_delinquent", "--out", str(out), "--no-report")
+    r = subprocess.run([*console_script(), "audit", demo_csv, *DEMO_ARGS, "--out", str(out)], capture_output=True,
+                       text=True, cwd=ROOT, env={**os.environ, "PYTHONPATH": ROOT})
     assert r.returncode == 0, r.stderr
     assert "age_band=18-24 & employment_type=gig" in r.stdout
     assert "not findings of discrimination" in r.stdout
@@ -37,17 +44,25 @@ def test_demo_end_to_end(demo_csv, tmp_path):
     assert s["configuration"]["metric"] == "error_rate" and s["tool"]["name"] == "fissure"
     assert not [p for p in os.listdir(out) if p.endswith(".part")]
 
+    # `python -m audit` (audit/__main__.py, run in this process) writes the same bytes.
+    monkeypatch.setattr(sys, "argv", ["fissure", "audit", demo_csv, *DEMO_ARGS, "--out", str(tmp_path / "m")])
+    with pytest.raises(SystemExit) as exc:
+        runpy.run_module("audit", run_name="__main__", alter_sys=True)
+    assert exc.value.code == 0, capsys.readouterr().err
+    summary = capsys.readouterr().out.splitlines()
+    assert summary[:-1] == r.stdout.splitlines()[:-1]  # the last line names the output folder
+    assert (tmp_path / "m" / "slices.csv").read_bytes() == (out / "slices.csv").read_bytes()
 
-def test_python_m_and_console_script_agree(demo_csv, tmp_path):
-    r = fissure("audit", demo_csv, "--label", "delinquent", "--score", "p_delinquent", "--out", str(tmp_path / "a"),
-                "--no-report", "--quiet", "--max-order", "1")
-    assert r.returncode == 0 and r.stdout == ""
-    exe = os.path.join(os.path.dirname(sys.executable), "fissure")
-    if os.path.exists(exe):
-        r2 = subprocess.run([exe, "audit", demo_csv, "--label", "delinquent", "--score", "p_delinquent", "--out",
-                             str(tmp_path / "b"), "--no-report", "--quiet", "--max-order", "1"], capture_output=True)
-        assert r2.returncode == 0
-        assert (tmp_path / "a" / "slices.csv").read_bytes() == (tmp_path / "b" / "slices.csv").read_bytes()
+
+def test_console_script_calls_main():
+    # The `fissure` command is the same function the tests call in-process.
+    eps = [e for e in metadata.entry_points(group="console_scripts") if e.name == "fissure"]
+    assert eps and eps[0].value == "audit.faces.cli:main"
+
+
+def test_quiet_prints_nothing(demo_csv, tmp_path, fissure_main):
+    r = fissure_main("audit", demo_csv, *DEMO_ARGS, "--out", tmp_path / "a", "--quiet", "--max-order", "1")
+    assert r.returncode == 0 and r.stdout == "", r
 
 
 def _table(tmp_path, name, text):
@@ -77,22 +92,22 @@ GOOD = "y,p,g\n0,0.1,a\n1,0.8,b\n0,0.3,a\n1,0.7,b\n"
     (GOOD, ["--label", "y", "--score", "p", "--metric", "auc"], "invalid choice"),
     (GOOD, ["--score", "p"], "give the label column"),
 ])
-def test_bad_input_is_one_line_exit_2_and_writes_nothing(tmp_path, content, args, msg):
+def test_bad_input_is_one_line_exit_2_and_writes_nothing(tmp_path, fissure_main, content, args, msg):
     data = str(tmp_path / "missing.csv") if content is None else _table(tmp_path, "t.csv", content)
     out = tmp_path / "out"
-    r = fissure("audit", data, *args, "--out", str(out))
-    assert r.returncode == 2, (r.stdout, r.stderr)
+    r = fissure_main("audit", data, *args, "--out", out)  # argparse's SystemExit code counts as the exit code
+    assert r.returncode == 2, r
     lines = r.stderr.strip().splitlines()
-    assert len(lines) == 1 and msg in lines[0] and lines[0].startswith("fissure: ")
+    assert len(lines) == 1 and msg in lines[0] and lines[0].startswith("fissure: "), r
     assert "Traceback" not in r.stderr
     assert not out.exists()
 
 
-def test_config_file_reproduces_the_run(demo_csv, tmp_path):
-    a = fissure("audit", demo_csv, "--label", "delinquent", "--score", "p_delinquent", "--metric", "recall",
-                "--min-support", "50", "--correction", "holm", "--out", str(tmp_path / "a"), "--quiet")
+def test_config_file_reproduces_the_run(demo_csv, tmp_path, fissure_main):
+    a = fissure_main("audit", demo_csv, "--label", "delinquent", "--score", "p_delinquent", "--metric", "recall",
+                     "--min-support", "50", "--correction", "holm", "--out", tmp_path / "a", "--quiet")
     assert a.returncode == 0, a.stderr
-    b = fissure("audit", demo_csv, "--config", str(tmp_path / "a" / "fissure.toml"), "--out", str(tmp_path / "b"),
-                "--quiet")
+    b = fissure_main("audit", demo_csv, "--config", tmp_path / "a" / "fissure.toml", "--out", tmp_path / "b",
+                     "--quiet")
     assert b.returncode == 0, b.stderr
     assert (tmp_path / "a" / "slices.csv").read_bytes() == (tmp_path / "b" / "slices.csv").read_bytes()
