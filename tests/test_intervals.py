@@ -14,6 +14,25 @@ from audit.stats.intervals import (clopper_pearson, f1_interval, mean_interval, 
 def test_wilson_against_newcombe_1998(k, n, lo, hi):
     got = wilson(k, n)
     assert round(float(got[0]), 4) == lo and round(float(got[1]), 4) == hi
+    # the same table through statsmodels' Wilson interval
+    rlo, rhi = proportion_confint(k, n, alpha=0.05, method="wilson")
+    assert float(got[0]) == pytest.approx(rlo, abs=1e-12) and float(got[1]) == pytest.approx(rhi, abs=1e-12)
+
+
+@pytest.mark.parametrize("k,n", [(81, 263), (15, 148), (0, 20), (1, 29), (20, 20), (0, 1), (1, 1)])
+def test_clopper_pearson_on_newcombe_tables(k, n):
+    # Reference: statsmodels proportion_confint(method="beta") on Newcombe's (1998) four tables
+    # plus the all-or-nothing ends.
+    lo, hi = clopper_pearson(k, n)
+    rlo, rhi = proportion_confint(k, n, alpha=0.05, method="beta")
+    assert float(lo) == pytest.approx(np.nan_to_num(rlo), abs=1e-12)
+    assert float(hi) == pytest.approx(np.nan_to_num(rhi, nan=1.0), abs=1e-12)
+    # Closed forms of the exact interval (Clopper & Pearson 1934): with no events the upper end
+    # is 1 - (alpha/2)^(1/n); with all events the lower end is (alpha/2)^(1/n).
+    if k == 0:
+        assert float(lo) == 0.0 and float(hi) == pytest.approx(1 - 0.025 ** (1 / n), rel=1e-12)
+    if k == n:
+        assert float(hi) == 1.0 and float(lo) == pytest.approx(0.025 ** (1 / n), rel=1e-12)
 
 
 def test_wilson_and_exact_against_statsmodels():
@@ -38,7 +57,7 @@ def test_wilson_is_nan_for_empty_denominator():
 
 @pytest.mark.parametrize("a,b,c,d,lo,hi", [
     # Newcombe (1998), Statistics in Medicine 17:873-890, Table II, method 10 (values from memory,
-    # each also checked against statsmodels below)
+    # each table also checked against statsmodels in the test)
     (56, 70, 48, 80, 0.0524, 0.3339), (9, 10, 3, 10, 0.1705, 0.8090), (0, 10, 0, 20, -0.1611, 0.2775),
     (10, 10, 0, 20, 0.6791, 1.0000),
 ])
@@ -47,6 +66,9 @@ def test_newcombe_difference(a, b, c, d, lo, hi):
     l2, h2 = wilson(c, d)
     _, dl, dh = mover_difference(a / b, l1, h1, c / d, l2, h2)
     assert round(float(dl), 4) == lo and round(float(dh), 4) == hi
+    # the same table through statsmodels' Newcombe hybrid score interval
+    rl, rh = confint_proportions_2indep(a, b, c, d, method="newcomb", compare="diff", alpha=0.05)
+    assert float(dl) == pytest.approx(rl, abs=1e-12) and float(dh) == pytest.approx(rh, abs=1e-12)
 
 
 def test_newcombe_difference_against_statsmodels():
@@ -61,6 +83,20 @@ def test_newcombe_difference_against_statsmodels():
         assert dl == pytest.approx(rl, abs=1e-10) and dh == pytest.approx(rh, abs=1e-10)
 
 
+@pytest.mark.parametrize("method,theirs", [("wilson", "wilson"), ("clopper-pearson", "beta")])
+def test_f1_interval_is_the_jaccard_interval_mapped(method, theirs):
+    # Reference: statsmodels proportion_confint for J = tp / (tp + fp + fn), mapped through the
+    # increasing F1 = 2J / (1 + J) (the identity F1 = 2J/(1+J) is textbook algebra).
+    rng = np.random.default_rng(6)
+    tp, fp, fn = (rng.integers(0, 200, 100) for _ in range(3))
+    tp[0] = 0
+    lo, hi = f1_interval(tp, fp, fn, method=method, level=0.9)
+    jl, jh = proportion_confint(tp, tp + fp + fn, alpha=0.1, method=theirs)
+    jl, jh = np.nan_to_num(jl), np.nan_to_num(jh, nan=1.0)
+    np.testing.assert_allclose(lo, 2 * jl / (1 + jl), atol=1e-12)
+    np.testing.assert_allclose(hi, 2 * jh / (1 + jh), atol=1e-12)
+
+
 def test_mean_interval_against_scipy():
     x = np.random.default_rng(3).exponential(1.0, 57)
     lo, hi = mean_interval(len(x), x.sum(), (x * x).sum())
@@ -71,9 +107,12 @@ def test_mean_interval_against_scipy():
 def test_welch_difference_against_scipy():
     rng = np.random.default_rng(4)
     a, b = rng.normal(0.3, 1.0, 40), rng.normal(0.0, 2.0, 90)
-    d, lo, hi, *_ = welch_difference(len(a), a.sum(), (a * a).sum(), len(b), b.sum(), (b * b).sum())
-    ref = stats.ttest_ind(a, b, equal_var=False).confidence_interval(0.95)  # scipy reference
+    d, lo, hi, se, df, *_ = welch_difference(len(a), a.sum(), (a * a).sum(), len(b), b.sum(), (b * b).sum())
+    res = stats.ttest_ind(a, b, equal_var=False)  # scipy reference (Welch)
+    ref = res.confidence_interval(0.95)
     assert (lo, hi) == pytest.approx((ref.low, ref.high), rel=1e-9)
+    assert d == pytest.approx(a.mean() - b.mean(), rel=1e-12)
+    assert df == pytest.approx(res.df, rel=1e-12)  # Welch-Satterthwaite degrees of freedom, scipy's
 
 
 def test_wilson_coverage_simulation():
