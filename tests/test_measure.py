@@ -2,7 +2,10 @@
 import numpy as np
 import pandas as pd
 import pytest
+from scipy import stats
 from sklearn import metrics as skm
+from statsmodels.stats.multitest import multipletests
+from statsmodels.stats.proportion import confint_proportions_2indep, proportion_confint
 
 import audit
 from conftest import slice_mask
@@ -35,7 +38,37 @@ def test_every_metric_matches_sklearn_for_random_slices(demo_df):
         assert row["brier"] == pytest.approx(skm.brier_score_loss(yt, ps), rel=1e-9)
         if row["order"] <= 1:
             assert row["roc_auc"] == pytest.approx(skm.roc_auc_score(yt, ps), rel=1e-12)
-        assert row["specificity"] == pytest.approx(tn / (tn + fp), rel=1e-12)
+        # scikit-learn references for the negative-class rates (pos_label=0) and their complements
+        spec = skm.recall_score(yt, yp, pos_label=0, zero_division=np.nan)
+        assert row["specificity"] == pytest.approx(spec, rel=1e-12, nan_ok=True)
+        assert row["fpr"] == pytest.approx(1 - spec, rel=1e-12, abs=1e-15, nan_ok=True)
+        assert row["npv"] == pytest.approx(skm.precision_score(yt, yp, pos_label=0, zero_division=np.nan), rel=1e-12,
+                                           nan_ok=True)
+        assert row["fnr"] == pytest.approx(1 - rc[0], rel=1e-12, abs=1e-15, nan_ok=True)
+        assert row["error_rate"] == pytest.approx(skm.zero_one_loss(yt, yp), rel=1e-12, abs=1e-15)
+        assert row["selection_rate"] == pytest.approx(yp.mean(), rel=1e-12, abs=1e-15)  # numpy on the raw rows
+        assert row["base_rate"] == pytest.approx(yt.mean(), rel=1e-12, abs=1e-15)
+        # statsmodels' Wilson interval on the counts the engine reported for each rate
+        for name, k, den in [("error_rate", fp + fn, len(yt)), ("recall", tp, tp + fn), ("precision", tp, tp + fp)]:
+            if den:
+                lo, hi = proportion_confint(k, den, alpha=0.05, method="wilson")
+                assert (row[f"{name}_low"], row[f"{name}_high"]) == pytest.approx((lo, hi), abs=1e-12), name
+        if row["status"] == "tested":
+            rest = ~mask
+            k2, n2 = int((yhat[rest] != y[rest]).sum()), int(rest.sum())
+            k1, n1 = int(fp + fn), int(mask.sum())
+            # statsmodels' Newcombe hybrid score interval for slice minus rest
+            lo, hi = confint_proportions_2indep(k1, n1, k2, n2, method="newcomb", compare="diff", alpha=0.05)
+            assert (row["diff_low"], row["diff_high"]) == pytest.approx((lo, hi), abs=1e-12)
+            # scipy: Pearson chi-square without continuity correction (= pooled z) or Fisher's exact test
+            table = [[k1, n1 - k1], [k2, n2 - k2]]
+            ref = (stats.chi2_contingency(table, correction=False).pvalue if row["test"] == "z"
+                   else stats.fisher_exact(table).pvalue)
+            assert row["p_value"] == pytest.approx(ref, rel=1e-9), row["test"]
+    # statsmodels' multipletests (Benjamini-Hochberg) over the whole tested family
+    tested = sl[sl["status"] == "tested"]
+    assert len(tested) == res.family_size
+    np.testing.assert_allclose(tested["q_value"], multipletests(tested["p_value"], method="fdr_bh")[1], rtol=1e-12)
 
 
 def test_undefined_ratios_are_nan_not_zero():
