@@ -41,6 +41,7 @@ import io
 import lzma
 import os
 import re
+import warnings
 import zipfile
 import zlib
 from dataclasses import dataclass
@@ -293,13 +294,13 @@ def _pick_delimiter(header: str, tab_first: bool) -> str:
 
 
 def _read_text(data: bytes, label: str, codec, *, tab_first: bool) -> tuple[pd.DataFrame, str, str]:
+    _sniff_binary(data, label)
     text, used = _decode(data, codec, label)
     if used != "utf-8":
         data = text.encode("utf-8")
     elif data.startswith(codecs.BOM_UTF8):
         data = data[3:]
     if "\x00" in text:
-        _sniff_binary(data, label)
         at = text.index("\x00")
         line_no = text.count("\n", 0, at) + 1
         raise AuditInputError(f"input file {label} has a NUL byte at line {line_no:,}: binary data, or text in "
@@ -319,19 +320,24 @@ def _read_text(data: bytes, label: str, codec, *, tab_first: bool) -> tuple[pd.D
             raise AuditInputError(f"input file {label} has the column name {shown(col)} more than once")
         seen.add(col)
     try:
-        df = pd.read_csv(io.BytesIO(data), sep=sep, low_memory=False, encoding="utf-8", engine="c")
+        with warnings.catch_warnings():
+            # index_col=False: a row wider than the header must not turn the first column into the
+            # index; pandas warns when the extra fields hold data, and that warning becomes ours
+            warnings.simplefilter("error", pd.errors.ParserWarning)
+            df = pd.read_csv(io.BytesIO(data), sep=sep, low_memory=False, encoding="utf-8", engine="c",
+                             index_col=False)
+    except pd.errors.ParserWarning:
+        raise AuditInputError(f"input file {label} has data rows with more fields than its header's "
+                              f"{len(names):,} names") from None
     except pd.errors.EmptyDataError:
         raise AuditInputError(f"input file {label} is empty") from None
     except pd.errors.ParserError as exc:
         first = (str(exc).strip().splitlines() or [""])[-1].replace("Error tokenizing data. C error: ", "")
-        raise AuditInputError(f"input file {label} is not valid CSV: {shown(first, 120)}") from None
+        raise AuditInputError(f"input file {label} is not valid CSV: {shown(first, 120)[1:-1]}") from None
     except MemoryError:
         raise AuditInputError(f"input file {label} is too large to read in memory") from None
     except Exception as exc:  # the C parser's other failures: one line, never a traceback
         raise AuditInputError(f"input file {label} is not valid CSV ({type(exc).__name__})") from None
-    if not isinstance(df.index, pd.RangeIndex):
-        raise AuditInputError(f"input file {label} has data rows with more fields than its header's "
-                              f"{len(names):,} names (a {_DELIM_NAMES[sep]} at the end of each line?)")
     if df.shape[1] == 1:
         only = str(df.columns[0])
         others = [c for c in _DELIMITERS if c != sep and c in only]
