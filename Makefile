@@ -4,7 +4,7 @@ BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
 PORT ?= 8501
 
-.PHONY: setup run test bench demo clean
+.PHONY: setup run test bench bench-startup demo clean
 
 $(STAMP): pyproject.toml
 	@command -v $(PY) >/dev/null 2>&1 || { echo "need $(PY) on PATH (or run make PY=python3)"; exit 2; }
@@ -30,6 +30,9 @@ test: setup
 
 bench: setup
 	$(BIN)/python bench/slices_bench.py
+
+bench-startup: setup
+	$(BIN)/python bench/startup_bench.py
 
 clean:
 	rm -rf $(VENV) .pytest_cache demo/predictions.csv
