@@ -1,7 +1,14 @@
-"""The page through Streamlit's AppTest, driving the real engine."""
-import os
+"""The page through Streamlit's AppTest, driving the real engine.
 
+Every test checks that what a widget shows is what the numbers below it were computed from:
+the expected numbers come from a direct ``audit.run`` call with the settings the widgets show.
+"""
+import os
+import re
+
+import numpy as np
 import pandas as pd
+import pytest
 from streamlit.testing.v1 import AppTest
 
 import audit
@@ -16,67 +23,347 @@ def app():
     return AppTest.from_file(APP, default_timeout=180)
 
 
+def w(at, kind: str, name: str):
+    """The one widget of ``kind`` whose key is ``name`` or starts with ``name-`` (keys carry what they depend on)."""
+    hits = [x for x in getattr(at, kind) if x.key == name or (x.key or "").startswith(name + "-")]
+    assert len(hits) == 1, (name, [x.key for x in getattr(at, kind)])
+    return hits[0]
+
+
+def submit(at):
+    next(b for b in at.button if b.label == "Run the audit").click().run()
+    assert not at.exception, at.exception
+    return at
+
+
 def ranked_table(at):
     frames = [d.value for d in at.dataframe]
     return next(f for f in frames if "rank" in f.columns and "slice" in f.columns)
 
 
+def metric_box(at, label):
+    return next(m.value for m in at.metric if m.label == label)
+
+
+def upload(at, name, df):
+    at.file_uploader(key="upload").set_value((name, df.to_csv(index=False).encode(), "text/csv")).run()
+    assert not at.exception, at.exception
+    return at
+
+
+def churn_table(n=3000, seed=14):
+    """Seeded noise shaped like a churn model's test predictions: an identifier, a two-valued
+    attribute (sex) before the label, a predicted-label column, and the probability."""
+    rng = np.random.default_rng(seed)
+    sex = rng.choice(["female", "male"], n)
+    senior = rng.choice(["no", "yes"], n, p=[0.8, 0.2])
+    contract = rng.choice(["Month-to-month", "One year", "Two year"], n, p=[0.5, 0.25, 0.25])
+    tenure = rng.integers(0, 72, n)
+    y = (rng.random(n) < np.where(contract == "Month-to-month", 0.4, 0.1)).astype(int)
+    p = np.clip(np.where(y == 1, rng.beta(4, 3, n), rng.beta(2, 5, n)), 0, 1).round(4)
+    flip = (senior == "yes") & (rng.random(n) < 0.3)
+    p = np.where(flip, 1 - p, p).round(4)
+    return pd.DataFrame({"customer_id": [f"C{i:05d}" for i in rng.permutation(n)], "sex": sex,
+                         "senior_citizen": senior, "contract": contract, "tenure": tenure,
+                         "churned": np.where(y == 1, "yes", "no"), "churn_pred": np.where(p >= 0.5, "yes", "no"),
+                         "p_churn": p})
+
+
+# ----------------------------------------------------------------------------- demo
 def test_demo_runs_and_table_equals_engine(demo_df):
     at = app().run()
     assert not at.exception
     assert any("not a finding of discrimination" in i.value for i in at.info)
     got = ranked_table(at)
-    exp = audit.run(demo_df, label="delinquent", score="p_delinquent").ranked()[RANKED]
-    exp = exp.rename(columns={"metric_value": "error_rate"})
+    # The engine itself skips applicant_id as an identifier: the page's preselection is the same set.
+    exp_res = audit.run(demo_df, label="delinquent", score="p_delinquent")
+    exp = exp_res.ranked()[RANKED].rename(columns={"metric_value": "error_rate"})
     pd.testing.assert_frame_equal(got.reset_index(drop=True), exp.reset_index(drop=True), check_dtype=False)
+    assert w(at, "multiselect", "attributes").value == [a.name for a in exp_res.attributes]
     labels = [b.label for b in at.get("download_button")]
     assert {"slices.csv", "summary.json", "report.html"} <= set(labels)
-    charts = at.get("plotly_chart")
-    assert len(charts) >= 5
+    assert len(at.get("plotly_chart")) >= 5
+    assert any("applicant\\_id" in c.value and "identifier" in c.value for c in at.caption)
+    assert any("150 MB" in c.value and "refused" in c.value for c in at.caption)  # the upload limit, said in the page
 
 
-def test_upload_settings_and_filters_drive_the_engine(tmp_path):
-    df = random_table(n=3000, seed=12, effect=0.3)
+def test_overall_table_shows_auc_and_brier_to_four_decimals(demo_df):
     at = app().run()
-    at.file_uploader(key="upload").set_value(("mine.csv", df.to_csv(index=False).encode(), "text/csv")).run()
+    overall = at.dataframe[0]
+    assert set(overall.value["metric"]) >= {"roc_auc", "brier", "log_loss"}
+    spec = overall.proto.columns  # the column configuration sent to the browser, as JSON
+    assert '"%.4f"' in spec and "value" in spec
+
+
+# ----------------------------------------------------------------------------- a new file (issue 14, 1)
+def test_upload_shows_the_new_files_guesses_on_first_render():
+    df = churn_table()
+    at = upload(app().run(), "churn.csv", df)
+    # The first render after the upload already shows the new file's guesses (no demo columns).
+    assert w(at, "selectbox", "label").value == "churned"      # from p_churn's name, not the first 2-valued column
+    assert w(at, "selectbox", "score").value == "p_churn"
+    assert w(at, "selectbox", "pred").value == "(none)"
+    attrs = w(at, "multiselect", "attributes").value
+    assert attrs == ["sex", "senior_citizen", "contract", "tenure"]   # no identifier, no predicted label
+    assert "churn_pred" in w(at, "multiselect", "attributes").options
+    assert any("churn\\_pred" in c.value and "predicted label" in c.value for c in at.caption)
+    assert w(at, "selectbox", "positive").options == ["(infer)", "no", "yes"]
+    # ... and the numbers below were computed from exactly those settings.
+    exp = audit.run(df, label="churned", score="p_churn", attributes=attrs)
+    assert metric_box(at, "Slices tested") == f"{exp.status_counts()['tested']:,}"
+    got = ranked_table(at)
+    pd.testing.assert_frame_equal(got.reset_index(drop=True),
+                                  exp.ranked()[RANKED].rename(columns={"metric_value": "error_rate"})
+                                  .reset_index(drop=True), check_dtype=False)
+
+
+def test_second_upload_replaces_every_choice():
+    at = upload(app().run(), "churn.csv", churn_table())
+    w(at, "selectbox", "metric").set_value("recall")
+    submit(at)
+    other = random_table(n=1500, seed=3)
+    upload(at, "other.csv", other)
+    assert w(at, "selectbox", "label").value == "y" and w(at, "selectbox", "score").value == "p"
+    assert w(at, "multiselect", "attributes").value == ["region", "plan", "age"]
+    assert w(at, "selectbox", "metric").value == "error_rate"   # settings of the old file are forgotten
+    exp = audit.run(other, label="y", score="p", attributes=["region", "plan", "age"])
+    pd.testing.assert_frame_equal(ranked_table(at).reset_index(drop=True),
+                                  exp.ranked()[RANKED].rename(columns={"metric_value": "error_rate"})
+                                  .reset_index(drop=True), check_dtype=False)
+
+
+def test_label_change_refreshes_the_positive_class_and_attributes():
+    df = churn_table()
+    df["retained"] = np.where(df["churned"] == "yes", "gone", "kept")
+    at = upload(app().run(), "churn.csv", df)
+    w(at, "selectbox", "label").set_value("retained").run()
     assert not at.exception
-    assert at.selectbox(key="label").value == "y" and at.selectbox(key="score").value == "p"
-    at.selectbox(key="metric").set_value("recall")
-    at.number_input(key="min_support").set_value(50)
-    at.selectbox(key="correction").set_value("holm")
-    at.button[0].click().run()
-    assert not at.exception
+    # Without another run: the positive class offers the new label's values, and the old label is an attribute choice.
+    assert w(at, "selectbox", "positive").options == ["(infer)", "gone", "kept"]
+    assert "churned" in w(at, "multiselect", "attributes").options
+    assert "retained" not in w(at, "multiselect", "attributes").options
+    assert any("Positive class" in e.value for e in at.error)  # gone/kept cannot be inferred: the page says where
+    w(at, "selectbox", "positive").set_value("gone")
+    w(at, "multiselect", "attributes").set_value(["sex", "contract"])
+    submit(at)
+    assert not at.error
+    exp = audit.run(df, label="retained", score="p_churn", positive="gone", attributes=["sex", "contract"])
+    assert metric_box(at, "Slices tested") == f"{exp.status_counts()['tested']:,}"
+    assert any("positive class: **gone**" in c.value for c in at.caption)
+
+
+def test_predicted_label_column_can_be_chosen():
+    df = churn_table()
+    at = upload(app().run(), "churn.csv", df)
+    w(at, "selectbox", "pred").set_value("churn_pred").run()
+    assert not at.exception and not at.error
+    assert "churn_pred" not in w(at, "multiselect", "attributes").options
+    exp = audit.run(df, label="churned", score="p_churn", pred="churn_pred",
+                    attributes=["sex", "senior_citizen", "contract", "tenure"])
+    assert exp.prediction_source != "threshold"
+    assert metric_box(at, "Flagged") == f"{exp.status_counts()['flagged']:,}"
+    assert any("Prediction: the column **churn\\_pred**" in c.value for c in at.caption)
+
+
+# ----------------------------------------------------------------------------- a changed metric and filters
+def _panel_n(at) -> int:
+    line = next(m.value for m in at.markdown if " · n = **" in m.value)
+    return int(re.search(r"n = \*\*([\d,]+)\*\*", line).group(1).replace(",", ""))
+
+
+def test_metric_change_keeps_the_slice_picker_and_its_panel_in_step(demo_df):
+    at = app().run()
+    pick = w(at, "selectbox", "slice_pick")
+    chosen = pick.options[3]
+    pick.set_value(chosen).run()
+    w(at, "selectbox", "metric").set_value("recall")
+    submit(at)
+    exp = audit.run(demo_df, label="delinquent", score="p_delinquent", metric="recall")
+    pick = w(at, "selectbox", "slice_pick")
+    assert pick.value == chosen                       # the user's slice is kept while it exists
+    assert pick.options[: len(exp.ranked())] == exp.ranked()["slice"].tolist()
+    assert _panel_n(at) == int(exp.slice(pick.value)["n"])
+    # Heatmap pickers and the chart they drive agree.
+    ha, hb = w(at, "selectbox", "heat_a").value, w(at, "selectbox", "heat_b").value
+    import json
+
+    heat = next(json.loads(c.proto.spec) for c in at.get("plotly_chart") if c.key == "heatmap")
+    assert {heat["layout"]["xaxis"]["title"]["text"], heat["layout"]["yaxis"]["title"]["text"]} == {ha, hb}
+    w(at, "selectbox", "heat_a").set_value("channel").run()
+    heat = next(json.loads(c.proto.spec) for c in at.get("plotly_chart") if c.key == "heatmap")
+    hb = w(at, "selectbox", "heat_b").value
+    assert hb != "channel"
+    assert {heat["layout"]["xaxis"]["title"]["text"], heat["layout"]["yaxis"]["title"]["text"]} == {"channel", hb}
+
+
+def test_filters_drive_the_table_the_chart_and_the_picker():
+    import json
+
+    df = random_table(n=3000, seed=12, effect=0.3)
+    at = upload(app().run(), "mine.csv", df)
+    w(at, "selectbox", "metric").set_value("recall")
+    w(at, "number_input", "min_support").set_value(50)
+    w(at, "selectbox", "correction").set_value("holm")
+    submit(at)
     exp = audit.run(df, label="y", score="p", metric="recall", min_support=50, correction="holm",
                     attributes=["region", "plan", "age"]).ranked()[RANKED].rename(columns={"metric_value": "recall"})
-    got = ranked_table(at)
-    pd.testing.assert_frame_equal(got.reset_index(drop=True), exp.reset_index(drop=True), check_dtype=False)
+    pd.testing.assert_frame_equal(ranked_table(at).reset_index(drop=True), exp.reset_index(drop=True),
+                                  check_dtype=False)
     at.checkbox(key="filter_flagged").check().run()
     assert ranked_table(at)["flagged"].all()
+    at.checkbox(key="filter_flagged").uncheck().run()
     at.radio(key="filter_order").set_value("pair").run()
     assert (ranked_table(at)["order"] == 2).all()
-    at.multiselect(key="filter_attrs").set_value(["plan"]).run()
+    w(at, "multiselect", "filter_attrs").set_value(["plan"]).run()
     t = ranked_table(at)
-    assert t["slice"].str.contains("plan=").all()
+    assert len(t) and t["slice"].str.contains("plan=").all()
+    top = next(json.loads(c.proto.spec) for c in at.get("plotly_chart") if c.key == "top_chart")
+    drawn = [y for tr in top["data"] if tr["name"] in ("flagged slice", "not flagged") for y in tr["y"]]
+    assert drawn and all("plan=" in y and " &amp; " in y for y in drawn)
+    pick = w(at, "selectbox", "slice_pick")
+    assert all("plan=" in o and " & " in o for o in pick.options)
+    assert _panel_n(at) == int(t.set_index("slice").loc[pick.value, "n"]) if pick.value in set(t["slice"]) else True
 
 
-def test_bad_file_shows_a_message_not_an_exception():
+# ----------------------------------------------------------------------------- what the page says (issue 14, 2)
+def test_errors_name_the_widget_to_change():
+    at = upload(app().run(), "churn.csv", churn_table())
+    w(at, "selectbox", "score").set_value("(none)").run()
+    assert not at.exception
+    msg = " ".join(e.value for e in at.error)
+    assert "Predicted probability" in msg and "Predicted label column" in msg
+    assert "--" not in msg and "=..." not in msg
+
+
+def test_bad_files_show_a_message_not_an_exception():
     at = app().run()
     at.file_uploader(key="upload").set_value(("bad.csv", b"y,p,p\n0,0.1,0.2\n", "text/csv")).run()
     assert not at.exception
     assert any("column name 'p' more than once" in e.value for e in at.error)
-    at.file_uploader(key="upload").set_value(("three.csv", b"y,p,g\n0,0.1,a\n1,0.2,b\n2,0.3,c\n", "text/csv")).run()
+    at.file_uploader(key="upload").set_value(("three.csv", b"y,p,g\n" + b"0,0.1,a\n1,0.2,b\n2,0.3,c\n" * 20,
+                                              "text/csv")).run()
     assert not at.exception
-    assert any("label column 'y' has 3 distinct values" in e.value for e in at.error)
+    msg = " ".join(e.value for e in at.error)
+    assert "label column 'y' has 3 distinct values" in msg.replace("\\", "").lower() and "True label column" in msg
 
 
-def test_fairness_view(demo_df):
+def test_reference_group_on_a_missing_attribute_is_reported(demo_df):
     at = app().run()
-    at.multiselect(key="protected").set_value(["sex", "age_band"])
-    at.selectbox(key="favorable").set_value("0")
-    at.button[0].click().run()
-    assert not at.exception
+    w(at, "multiselect", "protected").set_value(["sex"])
+    w(at, "selectbox", "favorable").set_value("0")
+    w(at, "text_input", "reference").input("sexx=female")
+    submit(at)
+    assert any("Reference groups" in e.value and "sexx" in e.value and "not a protected attribute" in e.value
+               for e in at.error)
+
+
+def test_fairness_view_table_is_formatted(demo_df):
+    at = app().run()
+    w(at, "multiselect", "protected").set_value(["sex", "age_band"])
+    w(at, "selectbox", "favorable").set_value("0")
+    submit(at)
     assert any(h.value.endswith("Group fairness") for h in at.header)
-    labels = [b.label for b in at.get("download_button")]
-    assert "fairness.csv" in labels
-    frames = [d.value for d in at.dataframe]
-    assert any("impact_ratio" in f.columns for f in frames)
+    assert "fairness.csv" in [b.label for b in at.get("download_button")]
+    fair = next(d for d in at.dataframe if "impact_ratio" in d.value.columns)
+    t = fair.value
+    assert pd.api.types.is_float_dtype(t["selection_q"])           # numbers, shown with a format, not text
+    assert not t["exclusion_reason"].astype(str).isin(["None", "nan"]).any()
+    assert '"%.2e"' in fair.proto.columns and '"%.4f"' in fair.proto.columns
+    exp = audit.run(demo_df, label="delinquent", score="p_delinquent", protected=["sex", "age_band"], favorable="0")
+    g = exp.fairness.groups
+    np.testing.assert_allclose(t["selection_rate"].to_numpy(), g.loc[g["attribute"] == "sex", "selection_rate"])
+
+
+def _strings(node):
+    if isinstance(node, str):
+        yield node
+    elif isinstance(node, dict):
+        for v in node.values():
+            yield from _strings(v)
+    elif isinstance(node, list):
+        for v in node:
+            yield from _strings(v)
+
+
+def test_markup_in_values_is_shown_as_text():
+    import json
+
+    df = random_table(n=2000, seed=8, effect=0.4)
+    df["region"] = df["region"].replace({"r2": "<b>bold</b>", "r1": '<a href="javascript:alert(1)">click</a>'})
+    at = upload(app().run(), "markup.csv", df)
+    seen = []
+    for c in at.get("plotly_chart"):
+        texts = list(_strings(json.loads(c.proto.spec)))
+        assert not any("<b>bold" in x or "<a href" in x for x in texts), c.key
+        seen += [x for x in texts if "&lt;b&gt;bold&lt;/b&gt;" in x]
+    assert seen  # Plotly draws the entities as the characters < and >, as the tables show them
+
+
+# ----------------------------------------------------------------------------- several sessions (issue 14, 3)
+def test_upload_parsed_once_and_report_built_only_on_request():
+    from ui import memo
+
+    df = churn_table(n=1500, seed=2)
+    memo.TABLES.clear()
+    memo.REPORTS.clear()
+    before = memo.TABLES.misses
+    at = upload(app().run(), "churn.csv", df)
+    w(at, "selectbox", "metric").set_value("recall")
+    submit(at)
+    at.checkbox(key="filter_flagged").check().run()
+    # demo + the upload: two reads however many reruns
+    assert memo.TABLES.misses - before == 2
+    assert len(memo.REPORTS) == 0                      # nothing built until a download is clicked
+    assert "report.html" in [b.label for b in at.get("download_button")]
+    assert memo.TABLES.bytes <= memo.TABLES.max_bytes
+
+
+def test_the_byte_limit_evicts_least_recently_used():
+    from ui.memo import SizedCache
+
+    c = SizedCache("t", 3000)
+    c.put("a", b"x" * 1000)
+    c.put("b", b"x" * 1000)
+    c.get("a")
+    c.put("c", b"x" * 1500)
+    assert c.get("b") is None and c.get("a") is not None and c.get("c") is not None
+    c.put("huge", b"x" * 5000)                          # larger than the whole limit: not kept
+    assert c.get("huge") is None and c.bytes <= 3000
+    made = []
+    assert c.get_or_make("k", lambda: made.append(1) or b"v") == b"v"
+    assert c.get_or_make("k", lambda: made.append(1) or b"v") == b"v" and made == [1]
+
+
+def test_guesses_from_names_before_position():
+    from ui import intake
+
+    df = pd.DataFrame({"sex": ["f", "m"] * 50, "Exited": [0, 1] * 50, "prob_exited": np.linspace(0.01, 0.99, 100),
+                       "model_decision": [0, 1] * 50, "region": list("abcd") * 25})
+    t = intake.Table(df=df, source=None, columns=intake._profile(df, fast=False))
+    assert intake.guess_score(t) == "prob_exited"
+    assert intake.guess_label(t, "prob_exited") == "Exited"
+    assert intake.pred_like_columns(t, "Exited") == ["model_decision"]
+    keep, skip = intake.screen(t, ["sex", "model_decision", "region"], label="Exited")
+    assert keep == ["sex", "region"] and "predicted label" in skip["model_decision"]
+    df2 = pd.DataFrame({"sex": ["f", "m"] * 50, "outcome": ["no", "yes"] * 50, "p": np.linspace(0, 1, 100)})
+    t2 = intake.Table(df=df2, source=None, columns=intake._profile(df2, fast=False))
+    assert intake.guess_label(t2) == "outcome"
+
+
+def test_fast_reader_gives_the_engines_table(demo_csv, tmp_path):
+    """The page's pyarrow reader and the engine's reader give the same audit."""
+    from audit.core.read import read_table
+    from ui import intake
+
+    data = open(demo_csv, "rb").read()
+    t = intake._read(data, "predictions.csv", intake.digest(data))
+    assert t.reader == "pyarrow"
+    ref, _ = read_table(data, name="predictions.csv")
+    a = audit.run(t.df, label="delinquent", score="p_delinquent")
+    b = audit.run(ref, label="delinquent", score="p_delinquent")
+    pd.testing.assert_frame_equal(a.slices, b.slices)
+    odd = b"when,y,p,g\n2024-01-05,0,0.1,a\n2024-01-06,1,0.9,b\n,1,0.4,a\n"  # dates stay text, empty is missing
+    t = intake._read(odd, "odd.csv", "x")
+    ref, _ = read_table(odd, name="odd.csv")
+    assert t.df["when"].astype(object).where(t.df["when"].notna(), None).tolist() == \
+        ref["when"].astype(object).where(ref["when"].notna(), None).tolist()

@@ -1,30 +1,70 @@
-"""The page's fairness view (the numbers come from ``audit.stats.fairness``)."""
+"""The page's fairness view (the numbers come from ``audit.stats.fairness``).
+
+The table is formatted like the slice table: rates with four decimals, adjusted p-values in
+scientific notation, blanks where a value does not apply (the reference group against itself).
+"""
 from __future__ import annotations
+
+import hashlib
 
 from audit.faces import charts
 from audit.stats.fairness import FairnessResult
 
-FAIR_COLUMNS = ["attribute", "group", "n", "share", "selection_rate", "impact_ratio", "below_four_fifths", "tpr",
-                "fpr", "ppv", "tpr_diff", "fpr_diff", "equalized_odds_gap", "ppv_diff", "selection_q", "excluded",
-                "exclusion_reason"]
+FAIR_COLUMNS = ["group", "n", "share", "selection_rate", "impact_ratio", "below_four_fifths", "selection_q", "tpr",
+                "fpr", "ppv", "tpr_diff", "fpr_diff", "equalized_odds_gap", "equalized_odds_p", "ppv_diff", "ppv_q",
+                "fairness_flag", "is_reference", "excluded", "exclusion_reason"]
+TITLES = {"selection_rate": "selection rate", "impact_ratio": "impact ratio", "below_four_fifths": "below 4/5",
+          "selection_q": "selection adj. p", "tpr_diff": "TPR − ref", "fpr_diff": "FPR − ref",
+          "equalized_odds_gap": "equalized-odds gap", "equalized_odds_p": "equalized-odds p", "ppv_diff": "PPV − ref",
+          "ppv_q": "PPV adj. p", "fairness_flag": "flagged", "is_reference": "reference", "exclusion_reason": "left out because",
+          "tpr": "TPR", "fpr": "FPR", "ppv": "PPV"}
+PVALUES = ("selection_q", "equalized_odds_p", "ppv_q")
+TEXT = ("group", "exclusion_reason")
+FLAGS = ("below_four_fifths", "fairness_flag", "is_reference", "excluded")
 
 
+def column_config(st, cols) -> dict:
+    cfg = {}
+    for c in cols:
+        title = TITLES.get(c, c)
+        if c in PVALUES:
+            cfg[c] = st.column_config.NumberColumn(title, format="%.2e")
+        elif c == "n":
+            cfg[c] = st.column_config.NumberColumn(title, format="%d")
+        elif c == "share":
+            cfg[c] = st.column_config.NumberColumn(title, format="%.4f")
+        elif c in FLAGS:
+            cfg[c] = st.column_config.CheckboxColumn(title)
+        elif c in TEXT:
+            cfg[c] = st.column_config.TextColumn(title)
+        else:
+            cfg[c] = st.column_config.NumberColumn(title, format="%.4f")
+    return cfg
 
-def show(fr: FairnessResult, st) -> None:
+
+def table(groups, attribute: str):
+    """The rows of one protected attribute, with the page's columns (text cells blank, not 'None')."""
+    cols = [c for c in FAIR_COLUMNS if c in groups.columns]
+    t = groups.loc[groups["attribute"] == attribute, cols].copy()
+    for c in TEXT:
+        if c in t.columns:
+            t[c] = t[c].astype(object).where(t[c].notna(), "").map(str)
+    return t
+
+
+def show(fr: FairnessResult, st, *, key: str = "") -> None:
     """Show the fairness view on the page (``st`` is the streamlit module)."""
     st.markdown(f"Favourable outcome: predicted **{fr.favorable}**"
                 + (" (the positive prediction)" if fr.favorable_is_positive else "")
-                + f". Groups under {fr.min_group_share:.0%} of rows are shown but left out of ratios.")
+                + f". Groups under {fr.min_group_share:.0%} of rows are shown but left out of ratios. Differences "
+                  "(− ref) are against the reference group of each attribute.")
     for note in fr.notes:
         st.caption(note)
     attrs = list(dict.fromkeys(fr.groups["attribute"]))
-    pick = st.selectbox("Protected attribute or intersection", attrs, key="fair_attr")
+    digest = hashlib.blake2b(repr((key, attrs)).encode(), digest_size=5).hexdigest()
+    pick = st.selectbox("Protected attribute or intersection", attrs, key=f"fair_attr-{digest}")
     a, b = st.columns(2)
     a.plotly_chart(charts.selection_rates(fr.groups, pick), key="fair_sel")
     b.plotly_chart(charts.error_rate_balance(fr.groups, pick), key="fair_eo")
-    cols = [c for c in FAIR_COLUMNS if c in fr.groups.columns]
-    st.dataframe(fr.groups.loc[fr.groups["attribute"] == pick, cols], hide_index=True, width="stretch")
-    if any(" & " in x for x in attrs):
-        st.markdown("**Intersectional groups**")
-        inter = fr.groups[fr.groups["attribute"].str.contains(" & ", regex=False)]
-        st.dataframe(inter[cols], hide_index=True, width="stretch")
+    t = table(fr.groups, pick)
+    st.dataframe(t, hide_index=True, width="stretch", column_config=column_config(st, t.columns))

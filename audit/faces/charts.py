@@ -2,6 +2,10 @@
 
 The page and the report call the same builders. Meaning is carried by position, text and
 marker shape as well as colour; the palette is our own and avoids red/green pairs.
+
+Plotly reads a little HTML in every label (``<b>``, ``<a href>``, ``<br>``). Every string that
+comes from the user's file (column names, values, slice names) goes through :func:`text`, so a
+value such as ``<b>x</b>`` is drawn as those characters, exactly as the tables show it.
 """
 from __future__ import annotations
 
@@ -26,6 +30,30 @@ PALETTE = {
 HEAT_SCALE = [[0.0, "#f7f4ea"], [0.35, "#c9d8e6"], [0.7, "#6a9bc7"], [1.0, "#1d3557"]]
 
 
+def text(value) -> str:
+    """A user's string made safe for a Plotly label, title, tick or hover: ``<``, ``>``, ``&`` as entities."""
+    return str(value).replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
+
+
+def _texts(values) -> list[str]:
+    return [text(v) for v in values]
+
+
+def log_ticks(lo: float, hi: float) -> tuple[list[float], list[str]]:
+    """Ticks 1-2-5 per decade between ``lo`` and ``hi`` with thousands separators (``1``, ``2``, ``5``, ``10``,
+    ... ``1,000``): readable on a log axis, unlike Plotly's default minor labels."""
+    lo, hi = max(float(lo), 1.0), max(float(hi), 1.0)
+    vals = []
+    for e in range(int(np.floor(np.log10(lo))), int(np.ceil(np.log10(hi))) + 1):
+        for m in (1, 2, 5):
+            v = m * 10.0 ** e
+            if lo / 1.5 <= v <= hi * 1.5:
+                vals.append(v)
+    if len(vals) > 9:  # wide ranges: decades only
+        vals = [v for v in vals if str(int(v)).startswith("1")]
+    return vals, [f"{v:,.0f}" for v in vals]
+
+
 def _layout(fig: go.Figure, *, title: str, width: int | None, height: int) -> go.Figure:
     fig.update_layout(
         title={"text": title, "x": 0.0, "xanchor": "left", "font": {"size": 15}},
@@ -40,11 +68,14 @@ def _metric_title(result) -> str:
     return result.metric.title
 
 
-def top_slices(result, *, k: int = 15, width: int | None = None) -> go.Figure:
-    """The ``k`` worst-ranked slices: metric with interval bars, and the rest's value beside it."""
-    t = result.ranked().head(k).iloc[::-1]
+def top_slices(result, *, k: int = 15, width: int | None = None, ranked: pd.DataFrame | None = None) -> go.Figure:
+    """The ``k`` worst-ranked slices: metric with interval bars, and the rest's value beside it.
+
+    ``ranked`` is a subset of ``result.ranked()`` (the page's filters); default: all of it.
+    """
+    t = (result.ranked() if ranked is None else ranked).head(k).iloc[::-1]
     lvl = int(round(result.config.level * 100))
-    names = [f"#{int(r)} {s}" for r, s in zip(t["rank"], t["slice"])]
+    names = [f"#{int(r)} {text(s)}" for r, s in zip(t["rank"], t["slice"])]
     err_plus = (t["metric_high"] - t["metric_value"]).to_numpy()
     err_minus = (t["metric_value"] - t["metric_low"]).to_numpy()
     flagged = t["flagged"].to_numpy(dtype=bool)
@@ -70,29 +101,31 @@ def top_slices(result, *, k: int = 15, width: int | None = None) -> go.Figure:
                       annotation_text="whole table", annotation_position="top")
     fig.update_xaxes(title=f"{_metric_title(result)} ({lvl}% interval)", gridcolor=PALETTE["grid"])
     fig.update_yaxes(automargin=True)
-    return _layout(fig, title=f"Worst {len(t)} slices by {_metric_title(result)}", width=width,
+    shown = "slices" if ranked is None else "slices shown"
+    return _layout(fig, title=f"Worst {len(t)} {shown} by {_metric_title(result)}", width=width,
                    height=max(260, 34 * len(t) + 120))
 
 
 def confusion(counts: dict, classes: tuple[str, str], *, title: str = "Confusion matrix",
               width: int | None = None, height: int = 300) -> go.Figure:
     """A 2 × 2 grid: rows actual class, columns predicted class; each cell shows count and share."""
-    neg, pos = (str(c) for c in classes)
+    neg, pos = (text(c) for c in classes)
     z = np.array([[counts["tn"], counts["fp"]], [counts["fn"], counts["tp"]]], dtype=float)
     total = z.sum()
     names = [["true negative", "false positive"], ["false negative", "true positive"]]
-    text = [[f"{names[i][j]}<br><b>{int(z[i, j]):,}</b><br>{(z[i, j] / total if total else 0):.1%}"
+    cells = [[f"{names[i][j]}<br><b>{int(z[i, j]):,}</b><br>{(z[i, j] / total if total else 0):.1%}"
              for j in range(2)] for i in range(2)]
     fig = go.Figure(go.Heatmap(
-        z=z, x=[f"predicted {neg}", f"predicted {pos}"], y=[f"actual {neg}", f"actual {pos}"], text=text,
+        z=z, x=[f"predicted {neg}", f"predicted {pos}"], y=[f"actual {neg}", f"actual {pos}"], text=cells,
         texttemplate="%{text}", colorscale=HEAT_SCALE, showscale=False, hoverinfo="skip", xgap=3, ygap=3))
     fig.update_yaxes(autorange="reversed")
-    return _layout(fig, title=title, width=width, height=height)
+    return _layout(fig, title=text(title), width=width, height=height)
 
 
 def pair_heatmap(result, attr_a: str, attr_b: str, *, width: int | None = None) -> go.Figure:
     """Metric over the cells of two attributes; every cell states its support, and cells
-    below support say so in text as well as being greyed."""
+    below support say so in text as well as being greyed, naming the shortfall: too few rows,
+    or too few rows in the metric's denominator (actual positives for recall...)."""
     sl = result.slices
     names = [a.name for a in result.attributes]
     if names.index(attr_a) > names.index(attr_b):
@@ -101,25 +134,55 @@ def pair_heatmap(result, attr_a: str, attr_b: str, *, width: int | None = None) 
     cells = sl[(sl["attribute_1"] == attr_a) & (sl["attribute_2"] == attr_b)]
     la, lb = levels[attr_a], levels[attr_b]
     z = np.full((len(la), len(lb)), np.nan)
-    text = [["no rows" for _ in lb] for _ in la]
-    for _, r in cells.iterrows():
-        i, j = la.index(r["value_1"]), lb.index(r["value_2"])
-        v = r["metric_value"]
+    cell_text = [["no rows" for _ in lb] for _ in la]
+    den_name, den_title = _denominator(result)
+    min_rows, min_den = result.config.min_support, result.config.min_metric_support
+    pos = {v: i for i, v in enumerate(la)}, {v: j for j, v in enumerate(lb)}
+    for r in cells.to_dict("records"):
+        i, j = pos[0][r["value_1"]], pos[1][r["value_2"]]
+        v, n = r["metric_value"], int(r["n"])
         if r["status"] == "below_support":
-            text[i][j] = f"below support<br>n={int(r['n'])}"
+            den = _denominator_count(r, den_name)
+            if n >= min_rows and den_name != "n" and den < min_den:
+                cell_text[i][j] = f"below support<br>n={n:,}, {den:,} {den_title}"
+            else:
+                cell_text[i][j] = f"below support<br>n={n:,}"
         else:
             z[i, j] = v
             mark = "⚑ " if r["flagged"] else ""
-            text[i][j] = f"{mark}{v:.3f}<br>n={int(r['n'])}" if v == v else f"undefined<br>n={int(r['n'])}"
+            cell_text[i][j] = f"{mark}{v:.3f}<br>n={n:,}" if v == v else f"undefined<br>n={n:,}"
     fig = go.Figure(go.Heatmap(
-        z=z, x=lb, y=la, text=text, texttemplate="%{text}", colorscale=HEAT_SCALE, xgap=2, ygap=2,
-        colorbar={"title": {"text": result.config.metric}}, hoverongaps=False,
-        hovertemplate=f"{attr_a}=%{{y}}<br>{attr_b}=%{{x}}<br>%{{text}}<extra></extra>"))
+        z=z, x=_texts(lb), y=_texts(la), text=cell_text, texttemplate="%{text}", colorscale=HEAT_SCALE, xgap=2,
+        ygap=2, colorbar={"title": {"text": result.config.metric}}, hoverongaps=False,
+        hovertemplate=f"{text(attr_a)}=%{{y}}<br>{text(attr_b)}=%{{x}}<br>%{{text}}<extra></extra>"))
     fig.update_layout(plot_bgcolor=PALETTE["absent"])
-    fig.update_xaxes(title=attr_b, type="category")
-    fig.update_yaxes(title=attr_a, type="category", autorange="reversed")
-    return _layout(fig, title=f"{_metric_title(result)} by {attr_a} × {attr_b} (⚑ flagged; grey: below support "
-                              f"or no rows)", width=width, height=max(300, 38 * len(la) + 150))
+    fig.update_xaxes(title=text(attr_b), type="category")
+    fig.update_yaxes(title=text(attr_a), type="category", autorange="reversed")
+    support = (f"below support: fewer than {min_rows:,} rows" if den_name == "n" else
+               f"below support: fewer than {min_rows:,} rows or {min_den:,} {den_title}")
+    return _layout(fig, title=f"{_metric_title(result)} by {text(attr_a)} × {text(attr_b)} (⚑ flagged; grey: "
+                              f"{support}, or no rows)", width=width, height=max(300, 38 * len(la) + 150))
+
+
+#: Words for the rows a rate is computed over (its denominator).
+DENOMINATORS = {"n": "rows", "actual_pos": "actual positives", "actual_neg": "actual negatives",
+                "pred_pos": "predicted positives", "pred_neg": "predicted negatives",
+                "tp_fp_fn": "rows positive in truth or prediction"}
+
+
+def _denominator(result) -> tuple[str, str]:
+    name = getattr(result.metric, "denominator", "n") or "n"
+    return name, DENOMINATORS.get(name, name)
+
+
+def _denominator_count(row, name: str) -> int:
+    if name == "actual_neg":
+        return int(row["n"] - row["actual_pos"])
+    if name == "pred_neg":
+        return int(row["n"] - row["pred_pos"])
+    if name == "tp_fp_fn":
+        return int(row["tp"] + row["fp"] + row["fn"])
+    return int(row[name])
 
 
 def noise_band(result, *, width: int | None = None) -> go.Figure:
@@ -142,10 +205,13 @@ def noise_band(result, *, width: int | None = None) -> go.Figure:
         part = t[mask.to_numpy(dtype=bool)]
         if len(part):
             fig.add_trace(go.Scatter(
-                x=part["n"], y=part["metric_value"], mode="markers", name=label, text=part["slice"],
+                x=part["n"], y=part["metric_value"], mode="markers", name=label, text=_texts(part["slice"]),
                 marker={"symbol": symbol, "size": size, "color": colour, "opacity": 0.8},
                 hovertemplate="%{text}<br>n=%{x}<br>value %{y:.4f}<extra></extra>"))
     fig.update_xaxes(type="log", title="slice size (rows, log scale)", gridcolor=PALETTE["grid"])
+    if len(t):
+        vals, labels = log_ticks(t["n"].min(), t["n"].max())
+        fig.update_xaxes(tickvals=vals, ticktext=labels)
     fig.update_yaxes(title=_metric_title(result), gridcolor=PALETTE["grid"])
     return _layout(fig, title=f"Where noise ends: {_metric_title(result)} against slice size", width=width,
                    height=420)
@@ -168,7 +234,7 @@ def selection_rates(fair_groups: pd.DataFrame, attribute: str, *, width: int | N
     excluded = g["excluded"].to_numpy(dtype=bool)
     below = g["below_four_fifths"].to_numpy(dtype=bool)
     colours = np.where(below, PALETTE["flag"], np.where(excluded, PALETTE["rest"], PALETTE["calm"]))
-    labels = [f"{grp}{' (reference)' if ref else ''}{' (left out: small)' if ex else ''}"
+    labels = [f"{text(grp)}{' (reference)' if ref else ''}{' (left out: small)' if ex else ''}"
               for grp, ref, ex in zip(g["group"], g["is_reference"], excluded)]
     fig.add_trace(go.Bar(
         x=labels, y=g["selection_rate"], marker={"color": colours},
@@ -184,14 +250,14 @@ def selection_rates(fair_groups: pd.DataFrame, attribute: str, *, width: int | N
                       annotation_text=f"four-fifths of reference ({0.8 * r:.1%})", annotation_position="top left")
     fig.update_yaxes(title="selection rate (favourable outcome)", tickformat=".0%", gridcolor=PALETTE["grid"])
     fig.update_xaxes(type="category")
-    return _layout(fig, title=f"Selection rate by {attribute}", width=width, height=380)
+    return _layout(fig, title=f"Selection rate by {text(attribute)}", width=width, height=380)
 
 
 def error_rate_balance(fair_groups: pd.DataFrame, attribute: str, *, width: int | None = None) -> go.Figure:
     """True-positive rate against false-positive rate per group, with intervals on both axes."""
     g = fair_groups[(fair_groups["attribute"] == attribute)]
     fig = go.Figure(go.Scatter(
-        x=g["fpr"], y=g["tpr"], mode="markers+text", text=g["group"], textposition="top center",
+        x=g["fpr"], y=g["tpr"], mode="markers+text", text=_texts(g["group"]), textposition="top center",
         marker={"size": 11, "color": PALETTE["ink"], "symbol": "circle"},
         error_x={"type": "data", "array": g["fpr_high"] - g["fpr"], "arrayminus": g["fpr"] - g["fpr_low"],
                  "color": PALETTE["calm"]},
@@ -200,8 +266,8 @@ def error_rate_balance(fair_groups: pd.DataFrame, attribute: str, *, width: int 
         hovertemplate="%{text}<br>FPR %{x:.3f}<br>TPR %{y:.3f}<extra></extra>"))
     fig.update_xaxes(title="false-positive rate", gridcolor=PALETTE["grid"])
     fig.update_yaxes(title="true-positive rate", gridcolor=PALETTE["grid"])
-    return _layout(fig, title=f"Error-rate balance by {attribute}", width=width, height=380)
+    return _layout(fig, title=f"Error-rate balance by {text(attribute)}", width=width, height=380)
 
 
-__all__ = ["PALETTE", "top_slices", "confusion", "pair_heatmap", "noise_band", "worst_pair", "selection_rates",
+__all__ = ["PALETTE", "text", "log_ticks", "top_slices", "confusion", "pair_heatmap", "noise_band", "worst_pair", "selection_rates",
            "error_rate_balance"]

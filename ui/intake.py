@@ -1,0 +1,298 @@
+"""The page's intake: read an upload once, profile its columns, guess what they are.
+
+Reading: CSV-like uploads go through pyarrow's multi-threaded reader with text columns
+dictionary-encoded (pandas categoricals, which the engine encodes without factorising
+strings); anything unusual (another format, a parse problem, duplicate or single columns,
+dates) goes to ``audit.core.read.read_table`` so its messages and rules apply. The table,
+its profile and its digest are kept together in :data:`ui.memo.TABLES`, keyed on the
+file's SHA-256, so one upload is parsed once however many times the page reruns.
+
+Guesses: the label from its name (and from the probability column's name, ``p_churn`` ↔
+``churned``) before its position; predicted-label columns are recognised and never
+preselected as attributes; attributes the engine would skip are not preselected and their
+reasons are listed.
+"""
+from __future__ import annotations
+
+import hashlib
+import io
+import os
+import re
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from audit.core.read import SourceInfo, read_table
+from ui.memo import TABLES
+
+# Same missing-value spellings as pandas' CSV reader, so both paths read the same table.
+NA_TEXT = ["", "#N/A", "#N/A N/A", "#NA", "-1.#IND", "-1.#QNAN", "-NaN", "-nan", "1.#IND", "1.#QNAN", "<NA>",
+           "N/A", "NA", "NULL", "NaN", "None", "n/a", "nan", "null"]
+FAST_EXTENSIONS = (".csv", ".tsv", ".txt", "")
+DICT_LIMIT = 1000        # text columns with more distinct values stay plain text
+MAX_LEVELS = 100         # the engine's default limit for categorical attributes
+ID_MIN_VALUES = 20       # identifier-like: more than this many values and ≥ 90% distinct (the engine's rule)
+
+
+@dataclass(frozen=True)
+class Column:
+    """What the page knows about one column without running the audit."""
+
+    name: str
+    numeric: bool
+    distinct: int | None          # None: more than DICT_LIMIT (not counted)
+    n_missing: int
+    probability: bool             # float, not just 0/1, every value in [0, 1]
+    values: tuple[str, ...] = ()  # the values of a column with at most 20 of them, as text
+
+
+@dataclass(frozen=True)
+class Table:
+    df: pd.DataFrame
+    source: SourceInfo
+    columns: dict[str, Column] = field(repr=False)
+    reader: str = "pyarrow"
+    seconds: dict[str, float] = field(default_factory=dict, compare=False)
+
+    @property
+    def n_rows(self) -> int:
+        return len(self.df)
+
+
+# ----------------------------------------------------------------------------- reading
+def digest(data: bytes) -> str:
+    return hashlib.sha256(data).hexdigest()
+
+
+def _fast_csv(data: bytes, name: str) -> pd.DataFrame | None:
+    """pyarrow read of a plain CSV/TSV, or None when the engine's reader should decide."""
+    import pyarrow as pa
+    import pyarrow.csv as pc
+
+    ext = os.path.splitext(name)[1].lower()
+    if ext not in FAST_EXTENSIONS:
+        return None
+    body = memoryview(data)[3:] if data[:3] == b"\xef\xbb\xbf" else memoryview(data)
+    parse = pc.ParseOptions(delimiter="\t" if ext == ".tsv" else ",")
+    convert = dict(null_values=NA_TEXT, strings_can_be_null=True, true_values=["True", "TRUE", "true"],
+                   false_values=["False", "FALSE", "false"], auto_dict_encode=True,
+                   auto_dict_max_cardinality=DICT_LIMIT)
+    try:
+        table = pc.read_csv(pa.py_buffer(body), parse_options=parse, convert_options=pc.ConvertOptions(**convert))
+    except (pa.ArrowInvalid, pa.ArrowTypeError, UnicodeDecodeError, ValueError):
+        return None
+    names = table.column_names
+    if len(names) < 2 or len(set(names)) != len(names) or table.num_rows == 0:
+        return None
+    plain = (pa.types.is_integer, pa.types.is_floating, pa.types.is_boolean, pa.types.is_string,
+             pa.types.is_large_string, pa.types.is_dictionary)
+    odd = {}
+    for f in table.schema:
+        if pa.types.is_null(f.type):
+            odd[f.name] = pa.float64()          # pandas: an all-missing column is float NaN
+        elif not any(test(f.type) for test in plain):
+            odd[f.name] = pa.string()           # dates and times stay text, as pandas reads them
+    if odd:
+        try:
+            table = pc.read_csv(pa.py_buffer(body), parse_options=parse,
+                                convert_options=pc.ConvertOptions(column_types=odd, **convert))
+        except (pa.ArrowInvalid, pa.ArrowTypeError, ValueError):
+            return None
+    return table.to_pandas()
+
+
+def _profile(df: pd.DataFrame, *, fast: bool) -> dict[str, Column]:
+    out = {}
+    for c in df.columns:
+        s = df[c]
+        numeric = pd.api.types.is_numeric_dtype(s) and not pd.api.types.is_bool_dtype(s)
+        n_missing = int(s.isna().sum())
+        if isinstance(s.dtype, pd.CategoricalDtype):
+            used = np.bincount(s.cat.codes.to_numpy()[s.cat.codes.to_numpy() >= 0], minlength=len(s.cat.categories))
+            distinct = int((used > 0).sum())
+            vals = [str(v) for v, u in zip(s.cat.categories, used) if u] if distinct <= 20 else []
+        elif fast and not numeric and pd.api.types.is_string_dtype(s):
+            # On the fast path a text column stays plain text only with more than DICT_LIMIT values.
+            distinct, vals = None, []
+        else:
+            distinct = int(s.nunique(dropna=True))
+            vals = [_text(v) for v in s.dropna().unique()[:21]] if distinct <= 20 else []
+        prob = False
+        if pd.api.types.is_float_dtype(s) and (distinct is None or distinct > 2) and n_missing < len(s):
+            lo, hi = s.min(), s.max()
+            prob = bool(0.0 <= lo and hi <= 1.0)
+        out[c] = Column(c, numeric, distinct, n_missing, prob, tuple(sorted(vals, key=_natural)))
+    return out
+
+
+def _text(v) -> str:
+    if isinstance(v, (float, np.floating)) and float(v).is_integer():
+        return str(int(v))
+    return str(v)
+
+
+def _natural(v: str):
+    try:
+        return (0, float(v), v)
+    except ValueError:
+        return (1, 0.0, v)
+
+
+def read_upload(data: bytes, name: str, sha256: str | None = None) -> Table:
+    """The parsed table for an upload, from the cache when this file was read before."""
+    sha = sha256 or digest(data)
+    return TABLES.get_or_make(("table", sha, name), lambda: _read(data, name, sha))
+
+
+def _read(data: bytes, name: str, sha: str) -> Table:
+    import time
+
+    t0 = time.perf_counter()
+    df = _fast_csv(data, name) if data.strip() else None
+    reader = "pyarrow"
+    if df is None:
+        df, _ = read_table(data, name=name)  # the engine's reader: its rules and messages
+        reader = "pandas"
+    t1 = time.perf_counter()
+    cols = _profile(df, fast=reader == "pyarrow")
+    t2 = time.perf_counter()
+    return Table(df=df, source=SourceInfo(name=name, sha256=sha, n_bytes=len(data)), columns=cols, reader=reader,
+                 seconds={"parse": t1 - t0, "profile": t2 - t1})
+
+
+# ----------------------------------------------------------------------------- guesses
+LABEL_WORDS = ("label", "target", "outcome", "actual", "truth", "true", "y", "y_true", "ytrue", "class", "default",
+               "defaulted", "status", "churn", "churned", "delinquent", "fraud", "response", "event", "bad")
+PRED_WORDS = ("pred", "yhat", "y_hat", "prediction", "predicted", "decision", "forecast")
+SCORE_WORDS = ("p_", "prob", "score", "proba", "likelihood", "risk")
+OUTCOME_VALUES = ({"0", "1"}, {"no", "yes"}, {"false", "true"}, {"n", "y"}, {"-1", "1"})
+
+
+def _norm(name: str) -> str:
+    return re.sub(r"[^a-z0-9]+", "_", str(name).lower()).strip("_")
+
+
+def _stem(score_name: str) -> str:
+    """``p_churn`` → ``churn``; ``prob_default`` → ``default``; ``churn_probability`` → ``churn``."""
+    s = _norm(score_name)
+    for pre in ("predicted_probability_", "pred_prob_", "probability_", "proba_", "prob_", "score_", "pred_", "p_",
+                "pr_"):
+        if s.startswith(pre) and len(s) > len(pre):
+            s = s[len(pre):]
+            break
+    for suf in ("_probability", "_proba", "_prob", "_score", "_pred", "_p", "_pr"):
+        if s.endswith(suf) and len(s) > len(suf):
+            s = s[: -len(suf)]
+            break
+    return s
+
+
+def _names_match(col: str, stem: str) -> bool:
+    c = _norm(col)
+    if not stem or not c:
+        return False
+    short, long_ = sorted((c, stem), key=len)
+    return c == stem or (len(short) >= 3 and long_.startswith(short) and len(long_) - len(short) <= 3)
+
+
+def is_pred_like(name: str) -> bool:
+    words = set(_norm(name).split("_"))
+    n = _norm(name)
+    return bool(words & {"pred", "yhat", "prediction", "predicted", "decision"}) or n.startswith("pred") \
+        or n.endswith("_hat") or n in ("y_hat", "yhat")
+
+
+def binary_columns(table: Table) -> list[str]:
+    return [c for c, info in table.columns.items() if info.distinct == 2]
+
+
+def guess_score(table: Table, exclude: tuple[str, ...] = ()) -> str | None:
+    cands = [c for c, info in table.columns.items() if info.probability and c not in exclude]
+    named = [c for c in cands if any(w in _norm(c) for w in SCORE_WORDS) or _norm(c).startswith("p")]
+    return (named or cands or [None])[0]
+
+
+def guess_label(table: Table, score: str | None = None) -> str:
+    """The true-label column: named after the probability column, then by name, then by its values,
+    then the first two-valued column."""
+    binary = [c for c in binary_columns(table) if not is_pred_like(c) and c != score]
+    if score is None:
+        score = guess_score(table)
+    if score is not None:
+        stem = _stem(score)
+        for c in binary:
+            if _names_match(c, stem):
+                return c
+    for c in binary:
+        if _norm(c) in LABEL_WORDS or any(_norm(c).startswith(w + "_") or _norm(c).endswith("_" + w)
+                                          for w in LABEL_WORDS if len(w) > 2):
+            return c
+    for c in binary:
+        if {v.lower() for v in table.columns[c].values} in OUTCOME_VALUES:
+            return c
+    if binary:
+        return binary[0]
+    return next(iter(table.columns))
+
+
+def guess_pred(table: Table, label: str, score: str | None) -> str | None:
+    """A predicted-label column, offered only when there is no probability column."""
+    cands = pred_like_columns(table, label)
+    return cands[0] if cands and score is None else None
+
+
+def pred_like_columns(table: Table, label: str) -> list[str]:
+    lab = set(table.columns[label].values) if label in table.columns else set()
+    out = []
+    for c, info in table.columns.items():
+        if c == label or info.distinct is None or info.distinct > 2 or not is_pred_like(c):
+            continue
+        if not lab or set(info.values) <= lab:
+            out.append(c)
+    return out
+
+
+def screen(table: Table, candidates: list[str], *, label: str | None = None) -> tuple[list[str], dict[str, str]]:
+    """Split attribute candidates into those the engine will slice and those it would skip (with why).
+
+    The skip rules are the engine's (``audit.core.encoding.encode_attributes``): every value
+    missing, a single value, identifier-like text, more than 100 categories; a column that
+    looks like a predicted label is not preselected either.
+    """
+    keep, skip = [], {}
+    n = table.n_rows
+    for c in candidates:
+        info = table.columns[c]
+        nonmiss = n - info.n_missing
+        if label is not None and is_pred_like(c) and c in pred_like_columns(table, label):
+            skip[c] = "looks like a predicted label; choose it as the predicted label column instead"
+        elif nonmiss == 0:
+            skip[c] = "every value is missing"
+        elif info.distinct == 1 and info.n_missing == 0:
+            skip[c] = "a single value in every row"
+        elif info.numeric:
+            keep.append(c)
+        elif info.distinct is None:
+            skip[c] = f"more than {DICT_LIMIT:,} distinct values: looks like an identifier or free text"
+        elif info.distinct > ID_MIN_VALUES and info.distinct >= 0.9 * nonmiss:
+            skip[c] = f"looks like an identifier ({info.distinct:,} distinct values in {nonmiss:,} rows)"
+        elif info.distinct > MAX_LEVELS:
+            skip[c] = f"{info.distinct:,} distinct values, more than {MAX_LEVELS}; bin or group it first"
+        else:
+            keep.append(c)
+    return keep, skip
+
+
+def label_values(table: Table, label: str) -> list[str]:
+    info = table.columns.get(label)
+    if info is None:
+        return []
+    if info.values:
+        return list(info.values)
+    s = table.df[label].dropna()
+    return sorted({_text(v) for v in s.unique()[:20]}, key=_natural)
+
+
+__all__ = ["Column", "Table", "read_upload", "digest", "guess_label", "guess_score", "guess_pred", "screen",
+           "pred_like_columns", "label_values", "is_pred_like", "binary_columns"]
