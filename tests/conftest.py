@@ -65,11 +65,12 @@ def mask_for(df: pd.DataFrame, column: str, value: str) -> np.ndarray:
     s = df[column]
     if value == "(missing)":
         return s.isna().to_numpy()
-    if value.startswith("[") and "," in value and pd.api.types.is_numeric_dtype(s):
+    if value[:1] in "[(" and "," in value and pd.api.types.is_numeric_dtype(s):
         lo, hi = value[1:-1].split(", ")
         x = s.to_numpy(dtype=float)
         upper = x <= float(hi) if value.endswith("]") else x < float(hi)
-        return (x >= float(lo)) & upper
+        lower = x >= float(lo) if value.startswith("[") else x > float(lo)
+        return lower & upper
     if pd.api.types.is_numeric_dtype(s):
         return (s.to_numpy(dtype=float) == float(value))
     return (s.astype(object).where(s.notna(), None).map(lambda v: None if v is None else str(v)) == value).to_numpy()

@@ -29,7 +29,7 @@ def test_slice_auc_matches_sklearn(kind):
     fams = plan_families(len(cards), 2)
     cell = (y * 2 + (p >= 0.5)).astype(np.int8)
     t = tally(codes, cards, cell, families=fams)
-    auc = slice_auc(codes, cards, y, p, families=fams, counts=t.counts)
+    auc = slice_auc(codes, cards, y, p, families=fams, counts=t.counts, compiled=True)
     rng = np.random.default_rng(4)
     for k in [0, 1, 2, 3, 4, 5, 6]:  # the whole table, the three singles, the three pairs
         fam = fams[k]
@@ -54,8 +54,8 @@ def test_compiled_u_equals_numpy_reference():
     fams = plan_families(len(cards), 1)
     cell = (y * 2 + (p >= 0.5)).astype(np.int8)
     t = tally(codes, cards, cell, families=fams)
-    auc = slice_auc(codes, cards, y, p, families=fams, counts=t.counts)
+    auc = slice_auc(codes, cards, y, p, families=fams, counts=t.counts, compiled=True)
     _, offsets = _layout(fams, cards)
-    u = _u_numpy(np.argsort(p), p, y, codes, cards, fams, offsets)
+    u = _u_numpy(p, y, codes, cards, fams, offsets)
     npos, nneg = t.counts[:, 2] + t.counts[:, 3], t.counts[:, 0] + t.counts[:, 1]
     np.testing.assert_allclose(auc, u / (npos * nneg), rtol=1e-12)

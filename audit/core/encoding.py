@@ -1,61 +1,166 @@
-"""Step 2: choose the attribute columns and encode each as small integer codes.
+"""Step 2: choose the attribute columns and encode each as small integer codes, with an
+encoding fitted once and applied to any table or chunk.
 
-Categorical columns keep their values; numeric columns are cut into half-open bins;
-integer columns with few distinct values are kept as categories; missing values get a
-level of their own, ``(missing)``. Columns that cannot be sliced meaningfully (identifier-
-like, a single value, too many values) are skipped with a stated reason.
+Fitting works from :class:`ColumnProfile` objects, which add across chunks, so a table read in
+chunks gets exactly the encoding the same table held in memory gets:
+
+* categorical columns keep their values as levels (sorted, numbers in numeric order);
+  integer columns with few distinct values are categories too; a value missing anywhere
+  gets a level of its own, ``(missing)``;
+* numeric columns are cut into half-open bins ``[a, b)``. Quantile bins take their inner
+  edges from the quantiles of the first :data:`FIT_SAMPLE` non-missing values, rounded to a
+  few significant digits *before* any row is assigned, and the outer bins are open-ended:
+  ``(-inf, e1)``, ``[e1, e2)``, ..., ``[ek, inf)``. Explicit edges ``e0 < ... < ek`` give
+  ``[e0, e1)`` ... ``[e(k-1), ek)`` plus the open tails ``(-inf, e0)`` and ``[ek, inf)``
+  when rows fall there. Every printed label is exactly the rule that assigns rows;
+* columns that cannot be sliced meaningfully (identifier-like text or whole numbers, a single
+  value, too many values) are skipped with a stated reason.
+
+Values never seen at fit time (a category, or a missing value where none was seen), met when
+a fitted encoding is applied to another table, are an error naming the attribute and value:
+the slice layout never changes silently.
 """
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Iterable, Mapping, Sequence
+from typing import Any, Iterable, Mapping, Sequence
 
 import numpy as np
 import pandas as pd
 
-from ..errors import AuditInputError
-from .tally import small_histogram
+from ..errors import AuditInputError, shown
 
 MISSING = "(missing)"
-OUT_OF_RANGE = "(out of range)"
+#: Numeric values used to fit quantile bin edges: the first this many non-missing values.
+FIT_SAMPLE = 1_000_000
+#: Distinct text values tracked per column; beyond it a column is too varied to slice.
+TEXT_CAP = 100_000
+#: Whole-number columns with at most this many distinct values are categories, not bins.
+MAX_INTEGER_LEVELS = 12
+#: Identifier rule: more than this many distinct values, covering at least this share of rows.
+ID_MIN_DISTINCT, ID_SHARE = 20, 0.9
 
 
-@dataclass(frozen=True)
-class Attribute:
-    """One attribute column encoded for slicing.
+# ----------------------------------------------------------------------------- profiles
+@dataclass
+class ColumnProfile:
+    """What one column holds over some rows; ``a + b`` profiles the union of the rows.
 
-    ``codes[i]`` indexes ``levels`` for row ``i``. ``kind`` is ``"category"``, ``"integer
-    category"`` or ``"binned"``; ``edges`` holds the bin edges of a binned column.
+    Text columns (and pandas categoricals, booleans) keep each value's row count, up to
+    :data:`TEXT_CAP` distinct values. Numeric columns keep up to ``MAX_INTEGER_LEVELS + 1``
+    distinct values, whether every value is whole, the range, and the first
+    :data:`FIT_SAMPLE` non-missing values (for quantile edges and the identifier rule).
     """
 
     name: str
-    kind: str
-    levels: tuple[str, ...]
-    codes: np.ndarray = field(repr=False)
-    edges: tuple[float, ...] | None = None
+    kind: str  # "numeric" or "text"
+    n: int = 0
     n_missing: int = 0
+    counts: dict[str, int] | None = field(default_factory=dict)
+    distinct: set[float] | None = field(default_factory=set)
+    integral: bool = True
+    has_inf: bool = False
+    lo: float = np.inf
+    hi: float = -np.inf
+    sample: list[np.ndarray] = field(default_factory=list)
+    sample_size: int = 0
+
+    def __add__(self, other: "ColumnProfile") -> "ColumnProfile":
+        if self.kind != other.kind:
+            raise AuditInputError(f"attribute column {shown(self.name)} holds numbers in some rows and text in "
+                                  "others; clean it or list it with categorical=[...] (--categorical)",
+                                  setting="attributes")
+        out = ColumnProfile(self.name, self.kind, self.n + other.n, self.n_missing + other.n_missing)
+        if self.kind == "text":
+            if self.counts is None or other.counts is None:
+                out.counts = None
+            else:
+                merged = dict(self.counts)
+                for k, v in other.counts.items():
+                    merged[k] = merged.get(k, 0) + v
+                out.counts = merged if len(merged) <= TEXT_CAP else None
+            return out
+        out.distinct = None if self.distinct is None or other.distinct is None else self.distinct | other.distinct
+        if out.distinct is not None and len(out.distinct) > MAX_INTEGER_LEVELS + 1:
+            out.distinct = None
+        out.integral = self.integral and other.integral
+        out.has_inf = self.has_inf or other.has_inf
+        out.lo, out.hi = min(self.lo, other.lo), max(self.hi, other.hi)
+        out.sample, out.sample_size = list(self.sample), self.sample_size
+        for part in other.sample:
+            room = FIT_SAMPLE - out.sample_size
+            if room <= 0:
+                break
+            out.sample.append(part[:room])
+            out.sample_size += min(room, len(part))
+        return out
 
     @property
-    def cardinality(self) -> int:
-        return len(self.levels)
+    def n_distinct(self) -> int | None:
+        if self.kind == "text":
+            return None if self.counts is None else sum(1 for c in self.counts.values() if c > 0)
+        return None if self.distinct is None else len(self.distinct)
 
 
-def _fmt(x: float, digits: int) -> str:
-    if float(x).is_integer() and abs(x) < 1e15:
-        return str(int(x))
-    return f"{x:.{digits}g}"
+def _text_of(u) -> str:
+    if isinstance(u, (float, np.floating)) and float(u).is_integer():
+        return str(int(u))
+    return str(u)
 
 
-def edge_labels(edges: Sequence[float]) -> list[str]:
-    """Labels ``[a, b)`` for each bin; the last bin is closed, ``[a, b]``."""
-    for digits in range(3, 17):
-        txt = [_fmt(e, digits) for e in edges]
-        if len(set(txt)) == len(txt):
-            break
-    k = len(edges) - 1
-    return [f"[{txt[i]}, {txt[i + 1]}{']' if i == k - 1 else ')'}" for i in range(k)]
+def _raw_levels(s: pd.Series):
+    """Raw codes (-1 = missing), their texts and per-code row counts."""
+    if isinstance(s.dtype, pd.CategoricalDtype):
+        raw = np.asarray(s.array.codes)  # the column's own codes, no copy
+        text = [str(c) for c in s.cat.categories]
+    else:
+        raw, uniques = pd.factorize(s, use_na_sentinel=True)
+        text = [_text_of(u) for u in list(uniques)]
+    n_missing = int((raw < 0).sum())
+    counts = np.bincount(raw[raw >= 0] if n_missing else raw, minlength=len(text))
+    return raw, text, counts, n_missing
 
 
+def is_numeric(s: pd.Series) -> bool:
+    return pd.api.types.is_numeric_dtype(s) and not pd.api.types.is_bool_dtype(s)
+
+
+def profile_column(s: pd.Series, name: str, *, as_text: bool = False, cache: dict | None = None) -> ColumnProfile:
+    """Profile one column of one chunk. ``cache`` (a dict) receives work that
+    :meth:`Encoding.apply` can reuse on the same chunk."""
+    if is_numeric(s) and not as_text:
+        v = s.to_numpy(dtype=float)
+        miss = np.isnan(v)
+        fin = v[~miss]
+        p = ColumnProfile(name, "numeric", len(v), int(miss.sum()))
+        if len(fin):
+            finite = fin[np.isfinite(fin)]
+            p.has_inf = len(finite) < len(fin)
+            p.integral = bool(np.all(finite == np.round(finite)))
+            p.lo, p.hi = float(fin.min()), float(fin.max())
+            u = pd.unique(fin)
+            p.distinct = set(u.tolist()) if len(u) <= MAX_INTEGER_LEVELS + 1 else None
+            p.sample = [fin[:FIT_SAMPLE]]
+            p.sample_size = min(len(fin), FIT_SAMPLE)
+        if cache is not None:
+            cache[name] = ("numeric", v)
+        return p
+    raw, text, counts, n_missing = _raw_levels(s)
+    p = ColumnProfile(name, "text", len(raw), n_missing)
+    if len(text) > TEXT_CAP:
+        p.counts = None
+    else:
+        merged: dict[str, int] = {}
+        for t, c in zip(text, counts.tolist()):
+            if c:
+                merged[t] = merged.get(t, 0) + c  # two raw values may share a text (1 and "1")
+        p.counts = merged
+    if cache is not None:
+        cache[name] = ("text", (raw, text))
+    return p
+
+
+# ----------------------------------------------------------------------------- fitted encoding
 def _natural_key(v: str):
     try:
         return (0, float(v), v)
@@ -63,168 +168,313 @@ def _natural_key(v: str):
         return (1, 0.0, v)
 
 
-def _raw_levels(s: pd.Series):
-    """Raw codes (-1 = missing), their texts and per-code row counts, without copying the column."""
-    if isinstance(s.dtype, pd.CategoricalDtype):
-        raw = s.array.codes  # a read-only view of the column's codes, no copy
-        text = [str(c) for c in s.cat.categories]
-    else:
-        raw, uniques = pd.factorize(s, use_na_sentinel=True)
-        text = [str(int(u)) if isinstance(u, (float, np.floating)) and float(u).is_integer() else str(u)
-                for u in list(uniques)]
-    # Viewing the signed codes as unsigned puts -1 (missing) in the last bin of the histogram.
-    unsigned = raw.view(np.dtype(f"u{raw.dtype.itemsize}"))
-    if raw.dtype.itemsize <= 2:
-        hist = small_histogram(unsigned, 1 << (8 * raw.dtype.itemsize))
-        counts, n_missing = hist[:len(text)], int(hist[-1])
-    else:
-        n_missing = int((raw < 0).sum())
-        counts = np.bincount(raw[raw >= 0], minlength=len(text)) if n_missing else np.bincount(raw, minlength=len(text))
-    return raw, text, counts, n_missing
+def plain(x: float) -> str:
+    """An edge as plain digits, exactly (the shortest text that reads back as the same float)."""
+    if x == np.inf:
+        return "inf"
+    if x == -np.inf:
+        return "-inf"
+    if float(x).is_integer() and abs(x) < 1e16:
+        return str(int(x))
+    return np.format_float_positional(float(x), trim="-")
 
 
-def _categorical(name: str, s: pd.Series, kind: str, raw_levels=None) -> Attribute:
-    raw, text, counts, n_missing = raw_levels or _raw_levels(s)
-    order = sorted({t for t, c in zip(text, counts) if c > 0}, key=_natural_key)
-    pos = {t: i for i, t in enumerate(order)}
-    levels = order + ([MISSING] if n_missing else [])
-    # remap[-1] (taken with mode="wrap") is the missing level.
-    remap = np.array([pos.get(t, -1) for t in text] + [len(order) if n_missing else -1], dtype=np.int32)
-    if n_missing:
-        codes = np.take(remap, raw, mode="wrap")
-    elif np.array_equal(remap[:-1], np.arange(len(text))) and raw.dtype.itemsize == 1:
-        codes = raw.view(np.uint8)  # already in level order: reuse the column's own codes, no copy
-    else:
-        codes = np.take(remap[:-1].astype(np.uint8 if len(levels) <= 255 else np.int32), raw)
-    return Attribute(name=name, kind=kind, levels=tuple(levels), codes=codes, n_missing=n_missing)
+def round_edges(inner: np.ndarray, lo: float, hi: float) -> np.ndarray:
+    """Inner quantile edges rounded to the fewest significant digits (two or more) that keep
+    them distinct, increasing and inside (lo, hi]; raw edges if no rounding does."""
+    inner = np.unique(inner[(inner > lo) & (inner <= hi)])
+    if not len(inner):
+        return inner
+    for digits in range(2, 10):
+        r = np.array([float(f"{x:.{digits}g}") for x in inner])
+        r = r[(r > lo) & (r <= hi)]
+        if len(r) == len(inner) and np.all(np.diff(r) > 0):
+            return r
+    return inner
 
 
-def _binned(name: str, v: np.ndarray, edges: Sequence[float] | None, n_bins: int) -> Attribute:
-    miss = np.isnan(v)
-    vals = v[~miss]
-    explicit = edges is not None
-    if explicit:
-        e = np.asarray(edges, dtype=float)
-        if e.ndim != 1 or len(e) < 2 or not np.all(np.diff(e) > 0):
-            raise AuditInputError(f"bin edges for '{name}' must be at least two increasing numbers; received {list(edges)}")
-    else:
-        e = np.unique(np.quantile(vals, np.linspace(0.0, 1.0, n_bins + 1)))
-        if len(e) < 2:
-            e = np.array([vals.min(), vals.max()])
-    labels = edge_labels(e.tolist())
-    k = len(labels)
-    codes = np.empty(len(v), dtype=np.int32)
-    inner = np.searchsorted(e[1:-1], vals, side="right").astype(np.int32)
-    codes[~miss] = inner
-    extra: list[str] = []
-    if explicit:
-        outside = (vals < e[0]) | (vals > e[-1])
-        if outside.any():
-            idx = np.flatnonzero(~miss)[outside]
-            codes[idx] = k
-            extra.append(OUT_OF_RANGE)
-    n_missing = int(miss.sum())
-    if n_missing:
-        codes[miss] = k + len(extra)
-        extra.append(MISSING)
-    used = np.bincount(codes, minlength=k + len(extra)) > 0
-    levels = labels + extra
-    if not used.all():  # drop empty bins so every level is a real slice
-        keep = np.flatnonzero(used)
-        remap = np.full(len(levels), -1, dtype=np.int32)
-        remap[keep] = np.arange(len(keep), dtype=np.int32)
-        codes = remap[codes]
-        levels = [levels[i] for i in keep]
-    return Attribute(name=name, kind="binned", levels=tuple(levels), codes=codes,
-                     edges=tuple(float(x) for x in e), n_missing=n_missing)
+def bin_labels(edges: Sequence[float], *, lower_tail: bool, upper_tail: bool) -> list[str]:
+    """Labels for bins cut at ``edges``: ``[a, b)`` each, with optional open tails.
 
-
-def encode_attributes(
-    df: pd.DataFrame,
-    columns: Sequence[str],
-    *,
-    explicit: bool,
-    n_bins: int = 5,
-    bin_edges: Mapping[str, Sequence[float]] | None = None,
-    max_levels: int = 100,
-    max_integer_levels: int = 12,
-) -> tuple[list[Attribute], dict[str, str]]:
-    """Encode ``columns`` of ``df``; return the attributes and ``{column: reason}`` for skipped ones.
-
-    Identifier-like columns (non-numeric, more than 20 values and at least 90% of them
-    distinct), columns with a single value and categorical columns with more than
-    ``max_levels`` values are skipped with a reason, whether or not the user named them
-    (``explicit``), so the reason is always reported.
+    >>> bin_labels([18, 30, 65], lower_tail=True, upper_tail=True)
+    ['(-inf, 18)', '[18, 30)', '[30, 65)', '[65, inf)']
     """
-    if not isinstance(n_bins, (int, np.integer)) or isinstance(n_bins, bool) or n_bins < 1:
-        raise AuditInputError(f"bins must be a whole number of at least 1; received {n_bins!r}")
-    bin_edges = dict(bin_edges or {})
-    for col in bin_edges:
-        if col not in columns:
-            raise AuditInputError(f"bin edges were given for '{col}', which is not an audited attribute")
-    attrs: list[Attribute] = []
-    skipped: dict[str, str] = {}
-    n = len(df)
-    for col in columns:
-        s = df[col]
-        raw_levels = None
-        if isinstance(s.dtype, pd.CategoricalDtype):
-            raw_levels = _raw_levels(s)
-            n_nonmiss = n - raw_levels[3]
-            nu = int((raw_levels[2] > 0).sum())
+    txt = [plain(e) for e in edges]
+    out = [f"(-inf, {txt[0]})"] if lower_tail else []
+    out += [f"[{txt[i]}, {txt[i + 1]})" for i in range(len(txt) - 1)]
+    if upper_tail:
+        out.append(f"[{txt[-1]}, inf)")
+    return out
+
+
+@dataclass(frozen=True)
+class AttributeCoding:
+    """How one attribute column becomes codes: its kind, levels and (for bins) cut points.
+
+    ``kind`` is ``"category"``, ``"integer category"`` or ``"binned"``. For a binned column a
+    row's code is the number of ``cuts`` at or below its value (plus one when the levels start
+    with a lower tail); ``(missing)``, when present, is the last level.
+    """
+
+    name: str
+    kind: str
+    levels: tuple[str, ...]
+    edges: tuple[float, ...] | None = None
+    n_missing: int = 0
+    cuts: tuple[float, ...] = ()
+    first_code: int = 0
+
+    @property
+    def cardinality(self) -> int:
+        return len(self.levels)
+
+    @property
+    def has_missing(self) -> bool:
+        return bool(self.levels) and self.levels[-1] == MISSING
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"name": self.name, "kind": self.kind, "levels": list(self.levels),
+                "bin_edges": None if self.edges is None else list(self.edges),
+                "cuts": list(self.cuts), "first_code": self.first_code, "missing_rows": self.n_missing}
+
+    @classmethod
+    def from_dict(cls, d: Mapping[str, Any]) -> "AttributeCoding":
+        return cls(name=d["name"], kind=d["kind"], levels=tuple(d["levels"]),
+                   edges=None if d.get("bin_edges") is None else tuple(float(x) for x in d["bin_edges"]),
+                   n_missing=int(d.get("missing_rows", 0)), cuts=tuple(float(x) for x in d.get("cuts", ())),
+                   first_code=int(d.get("first_code", 0)))
+
+    def codes(self, s: pd.Series, cached=None, *, offset: int = 0) -> np.ndarray:
+        """Codes of one chunk's column (``cached``: what :func:`profile_column` kept for it)."""
+        dt = np.uint8 if self.cardinality <= 255 else np.int32
+        if self.kind == "binned":
+            v = cached[1] if cached is not None and cached[0] == "numeric" else _as_float(s, self.name)
+            miss = np.isnan(v)
+            codes = np.searchsorted(np.asarray(self.cuts), v, side="right").astype(np.int32) + self.first_code
+            bad = ~miss & ((codes < 0) | (codes >= self.cardinality - (1 if self.has_missing else 0)))
+            if bad.any():
+                i = int(np.flatnonzero(bad)[0])
+                raise _unseen(self.name, plain(v[i]), offset + i)
+            if miss.any():
+                if not self.has_missing:
+                    raise _unseen(self.name, MISSING, offset + int(np.flatnonzero(miss)[0]))
+                codes[miss] = self.cardinality - 1
+            return codes.astype(dt)
+        if cached is not None and cached[0] == "text":
+            raw, text = cached[1]
         else:
-            n_nonmiss = int(s.notna().sum())
-            nu = int(s.nunique(dropna=True))
-        if nu == 0:
+            raw, text, _, _ = _raw_levels(s)
+        pos = {t: i for i, t in enumerate(self.levels) if t != MISSING or not self.has_missing}
+        miss_code = self.cardinality - 1 if self.has_missing else -1
+        remap = np.array([pos.get(t, -1) for t in text] + [miss_code], dtype=np.int32)
+        codes = np.take(remap, raw, mode="wrap")  # raw -1 (missing) takes the last entry
+        if (codes < 0).any():
+            i = int(np.flatnonzero(codes < 0)[0])
+            value = MISSING if raw[i] < 0 else text[raw[i]]
+            raise _unseen(self.name, value, offset + i)
+        if remap.max() < 256 and dt == np.uint8:
+            return codes.astype(np.uint8)
+        return codes.astype(dt)
+
+
+def _as_float(s: pd.Series, name: str) -> np.ndarray:
+    try:
+        return s.to_numpy(dtype=float)
+    except (TypeError, ValueError):
+        raise AuditInputError(f"attribute column {shown(name)} was numeric when the encoding was fitted but holds "
+                              "text here", setting="attributes") from None
+
+
+def _unseen(name: str, value: str, row: int) -> AuditInputError:
+    return AuditInputError(f"attribute column {shown(name)} has value {shown(value)} at data row {row + 1}, which "
+                           "was not seen when the encoding was fitted; fit the encoding on this table",
+                           setting="attributes")
+
+
+@dataclass(frozen=True)
+class Encoding:
+    """Every attribute's coding plus the columns skipped and why; fitted once, applied to any
+    table or chunk (``encoding.apply(df)``) and written to ``summary.json`` (``to_dict``)."""
+
+    attributes: tuple[AttributeCoding, ...]
+    skipped: dict[str, str]
+
+    @property
+    def names(self) -> list[str]:
+        return [a.name for a in self.attributes]
+
+    @property
+    def cards(self) -> list[int]:
+        return [a.cardinality for a in self.attributes]
+
+    def apply(self, df: pd.DataFrame, cache: dict | None = None, *, offset: int = 0) -> list[np.ndarray]:
+        cache = cache or {}
+        return [a.codes(df[a.name], cache.get(a.name), offset=offset) for a in self.attributes]
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"attributes": [a.to_dict() for a in self.attributes],
+                "skipped": [{"column": k, "reason": v} for k, v in self.skipped.items()]}
+
+    @classmethod
+    def from_dict(cls, d: Mapping[str, Any]) -> "Encoding":
+        return cls(tuple(AttributeCoding.from_dict(a) for a in d["attributes"]),
+                   {s["column"]: s["reason"] for s in d.get("skipped", [])})
+
+
+def _categorical(p: ColumnProfile, kind: str) -> AttributeCoding:
+    if p.kind == "numeric":
+        values = sorted(p.distinct or ())
+        levels = [_text_of(v) for v in values]
+    else:
+        levels = sorted((t for t, c in (p.counts or {}).items() if c > 0), key=_natural_key)
+    return AttributeCoding(p.name, kind, tuple(levels + ([MISSING] if p.n_missing else [])), n_missing=p.n_missing)
+
+
+def _binned(p: ColumnProfile, edges: Sequence[float] | None, n_bins: int) -> AttributeCoding:
+    has_values = p.n > p.n_missing
+    if edges is not None:
+        e = np.asarray(edges, dtype=float)
+        lower = has_values and p.lo < e[0]
+        upper = has_values and p.hi >= e[-1]
+        labels = bin_labels(e.tolist(), lower_tail=lower, upper_tail=upper)
+        cuts, first, shown_edges = e, (0 if lower else -1), e
+    else:
+        sample = np.concatenate(p.sample) if p.sample else np.empty(0)
+        inner = np.quantile(sample, np.linspace(0.0, 1.0, n_bins + 1)[1:-1]) if len(sample) else np.empty(0)
+        inner = round_edges(inner, p.lo, p.hi)
+        labels = bin_labels(inner.tolist(), lower_tail=True, upper_tail=True) if len(inner) else ["(-inf, inf)"]
+        cuts, first, shown_edges = inner, 0, inner
+    levels = labels + ([MISSING] if p.n_missing else [])
+    return AttributeCoding(p.name, "binned", tuple(levels), edges=tuple(float(x) for x in shown_edges),
+                           n_missing=p.n_missing, cuts=tuple(float(x) for x in cuts), first_code=first)
+
+
+def fit_encoding(profiles: Sequence[ColumnProfile], *, n_bins: int = 5, bin_edges: Mapping[str, Sequence[float]]
+                 | None = None, max_levels: int = 100, categorical: Iterable[str] = (),
+                 numeric: Iterable[str] = ()) -> Encoding:
+    """Decide each profiled column's coding (or why it is skipped); see the module docstring."""
+    bin_edges = dict(bin_edges or {})
+    categorical, numeric = set(categorical), set(numeric)
+    names = {p.name for p in profiles}
+    for col in list(bin_edges) + sorted(categorical | numeric):
+        if col not in names:
+            raise AuditInputError(f"{'bin edges were' if col in bin_edges else 'a column type was'} given for "
+                                  f"{shown(col)}, which is not an audited attribute", setting="bin_edges")
+    attrs: list[AttributeCoding] = []
+    skipped: dict[str, str] = {}
+    for p in profiles:
+        col = p.name
+        n_nonmiss = p.n - p.n_missing
+        if n_nonmiss == 0:
             skipped[col] = "every value is missing"
             continue
-        is_bool = pd.api.types.is_bool_dtype(s)
-        is_num = pd.api.types.is_numeric_dtype(s) and not is_bool
-        if nu == 1 and not s.isna().any():
+        nu = p.n_distinct
+        if nu == 1 and not p.n_missing:
             skipped[col] = "a single value in every row"
             continue
-        if col in bin_edges:
-            if not is_num:
-                raise AuditInputError(f"bin edges were given for '{col}', which is not numeric")
-            attrs.append(_binned(col, s.to_numpy(dtype=float), bin_edges[col], n_bins))
+        if col in bin_edges or col in numeric:
+            if p.kind != "numeric":
+                raise AuditInputError(f"{'bin edges were' if col in bin_edges else 'numeric binning was'} asked for "
+                                      f"{shown(col)}, which is not numeric", setting="bin_edges")
+            if p.has_inf:
+                raise AuditInputError(f"attribute column {shown(col)} has an infinite value; bin or clean it first",
+                                      setting="attributes")
+            attrs.append(_binned(p, bin_edges.get(col), n_bins))
             continue
-        if is_num:
-            v = s.to_numpy(dtype=float)
-            fin = v[~np.isnan(v)]
-            if np.isinf(fin).any():
-                raise AuditInputError(f"attribute column '{col}' has an infinite value; bin or clean it first")
-            integral = bool(np.all(fin == np.round(fin)))
-            if integral and nu <= max_integer_levels:
-                attrs.append(_categorical(col, s, "integer category"))
-            else:
-                attrs.append(_binned(col, v, None, n_bins))
+        if p.kind == "numeric":
+            if p.has_inf:
+                raise AuditInputError(f"attribute column {shown(col)} has an infinite value; bin or clean it first",
+                                      setting="attributes")
+            if p.integral and nu is not None and nu <= MAX_INTEGER_LEVELS:
+                attrs.append(_categorical(p, "integer category"))
+                continue
+            if p.integral and p.sample_size:
+                sample = np.concatenate(p.sample)
+                distinct = len(np.unique(sample))
+                # Whole numbers, nearly all distinct, that run almost consecutively (row numbers) or
+                # sit in a column named like an identifier (account numbers): not a population trait.
+                run = float(sample.max() - sample.min() + 1) <= 2.0 * distinct
+                if distinct > ID_MIN_DISTINCT and distinct >= ID_SHARE * p.sample_size and (run or _id_name(col)):
+                    skipped[col] = (f"looks like a numeric identifier ({distinct} distinct whole numbers in "
+                                    f"{p.sample_size} rows); list it with categorical=[...] to slice it anyway")
+                    continue
+            attrs.append(_binned(p, None, n_bins))
             continue
-        if nu >= 0.9 * n_nonmiss and nu > 20:
+        if nu is None:
+            skipped[col] = f"looks like an identifier (more than {TEXT_CAP} distinct values)"
+            continue
+        if nu > ID_MIN_DISTINCT and nu >= ID_SHARE * n_nonmiss and col not in categorical:
             skipped[col] = f"looks like an identifier ({nu} distinct values in {n_nonmiss} rows)"
             continue
         if nu > max_levels:
             skipped[col] = f"{nu} distinct values, more than max_levels={max_levels}; bin or group it first"
             continue
-        attrs.append(_categorical(col, s, "category", raw_levels))
-    del explicit
-    return attrs, skipped
+        attrs.append(_categorical(p, "category"))
+    return Encoding(tuple(attrs), skipped)
 
 
-def choose_columns(df: pd.DataFrame, attributes: Iterable[str] | None, *, reserved: Sequence[str]) -> tuple[list[str], bool]:
-    """The attribute columns to encode: the user's list (checked) or every non-reserved column."""
+_ID_WORDS = ("id", "key", "number", "no", "num", "nr", "rownames", "index", "idx", "account", "uuid", "ref")
+
+
+def _id_name(col: str) -> bool:
+    import re
+
+    words = [w for w in re.split(r"[^a-z0-9]+", re.sub(r"([a-z])([A-Z])", r"\1_\2", str(col)).lower()) if w]
+    return any(w in _ID_WORDS for w in words)
+
+
+def choose_columns(columns: Sequence[str], attributes: Iterable[str] | None, *,
+                   reserved: Sequence[str]) -> list[str]:
+    """The attribute columns to profile: the user's list (checked) or every non-reserved column."""
+    columns = list(columns)
     if attributes is None:
-        return [c for c in df.columns if c not in reserved], False
+        return [c for c in columns if c not in reserved]
     cols = list(attributes)
-    if not cols:
-        raise AuditInputError("the attribute list is empty; leave it out to use every other column")
     seen: set[str] = set()
     for c in cols:
-        if c not in df.columns:
-            raise AuditInputError(f"attribute column '{c}' is not in the table")
+        if c not in columns:
+            raise AuditInputError(f"attribute column {shown(c)} is not in the table", setting="attributes")
         if c in reserved:
-            raise AuditInputError(f"attribute column '{c}' is the label, prediction or probability column")
+            raise AuditInputError(f"attribute column {shown(c)} is the label, prediction or probability column",
+                                  setting="attributes")
         if c in seen:
-            raise AuditInputError(f"attribute column '{c}' is listed twice")
+            raise AuditInputError(f"attribute column {shown(c)} is listed twice", setting="attributes")
         seen.add(c)
-    order = {c: i for i, c in enumerate(df.columns)}
-    return sorted(cols, key=order.__getitem__), True
+    order = {c: i for i, c in enumerate(columns)}
+    return sorted(cols, key=order.__getitem__)
+
+
+@dataclass(frozen=True)
+class Attribute:
+    """An attribute encoded for one table: its coding and the table's codes (convenience view)."""
+
+    coding: AttributeCoding
+    codes: np.ndarray = field(repr=False)
+
+    def __getattr__(self, name):
+        return getattr(self.coding, name)
+
+    @property
+    def cardinality(self) -> int:
+        return self.coding.cardinality
+
+
+def encode_attributes(df: pd.DataFrame, columns: Sequence[str], *, explicit: bool = False, n_bins: int = 5,
+                      bin_edges: Mapping[str, Sequence[float]] | None = None, max_levels: int = 100,
+                      categorical: Iterable[str] = (), numeric: Iterable[str] = ()):
+    """Profile, fit and apply in one step for one table: ``(attributes, {column: reason})``."""
+    del explicit
+    if not isinstance(n_bins, (int, np.integer)) or isinstance(n_bins, bool) or n_bins < 1:
+        raise AuditInputError(f"bins must be a whole number of at least 1; received {n_bins!r}", setting="bins")
+    for col, e in (bin_edges or {}).items():
+        e = list(e)
+        if len(e) < 2 or any(b <= a for a, b in zip(e, e[1:])):
+            raise AuditInputError(f"bin edges for {shown(col)} must be at least two increasing numbers; received {e}",
+                                  setting="bin_edges")
+    cache: dict = {}
+    cat = set(categorical)
+    profiles = [profile_column(df[c], c, as_text=c in cat, cache=cache) for c in columns]
+    enc = fit_encoding(profiles, n_bins=n_bins, bin_edges=bin_edges, max_levels=max_levels, categorical=cat,
+                       numeric=numeric)
+    codes = enc.apply(df, cache)
+    return [Attribute(a, c) for a, c in zip(enc.attributes, codes)], dict(enc.skipped)

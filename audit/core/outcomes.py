@@ -1,19 +1,28 @@
 """Step 1b: validate the outcome columns (label, prediction, probability) and encode them.
 
 Everything a user can get wrong about the label, prediction and probability columns is
-checked here, once, and reported as an :class:`AuditInputError` with one line naming the
-column, value or row. Later steps may assume clean input.
+checked here and reported as an :class:`AuditInputError` with one line naming the column,
+value or row. The work is split so that a table read in chunks is checked the same way as
+one held in memory:
+
+* :func:`profile_outcomes` checks one chunk's rows (missing labels, probabilities that are
+  missing, not numbers or outside [0, 1], missing predictions) and returns an
+  :class:`OutcomeProfile`, which adds across chunks (each class value with the first data
+  row it occurs in);
+* :func:`fit_outcomes` turns the whole table's profile into an :class:`OutcomeSpec`: the
+  classes in index order, the positive class (stated or inferred), how the prediction is made;
+* :meth:`OutcomeSpec.apply` encodes a chunk as class indices.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
-from ..errors import AuditInputError
-from .tally import small_histogram
+from ..errors import AuditInputError, shown
+from .values import canonical, numeric_text
 
 # Label pairs whose positive member is obvious; matched on lower-cased text.
 _KNOWN_PAIRS = [
@@ -24,17 +33,17 @@ _KNOWN_PAIRS = [
 
 @dataclass(frozen=True)
 class Outcomes:
-    """Validated outcome columns, encoded for counting.
+    """Validated outcome columns of one table or chunk, encoded for counting.
 
-    ``y`` and ``yhat`` hold class indices (0 = negative, 1 = positive) as int8; ``score``
-    is the probability of the positive class (float64) or ``None``. ``classes`` names the
-    classes in index order, so a multi-class audit can extend the same layout.
+    ``y`` and ``yhat`` hold class indices into ``classes`` (for two classes 0 = negative,
+    1 = positive) as int8; ``score`` is the probability of the positive class (float64) or
+    ``None``.
     """
 
     y: np.ndarray
     yhat: np.ndarray
     score: np.ndarray | None
-    classes: tuple[str, str]
+    classes: tuple[str, ...]
     positive: str
     positive_inferred: bool
     prediction_source: str  # "column" or "threshold"
@@ -42,20 +51,6 @@ class Outcomes:
 
 def _row(pos: int) -> str:
     return f"data row {pos + 1}"
-
-
-def canonical(value: Any) -> str:
-    """Text form used to compare class values across columns and with ``--positive``.
-
-    Integral floats and booleans map to integer text, so ``1``, ``1.0`` and ``True`` agree.
-    """
-    if isinstance(value, (bool, np.bool_)):
-        return str(int(value))
-    if isinstance(value, (float, np.floating)) and float(value).is_integer():
-        return str(int(value))
-    if isinstance(value, (int, np.integer)):
-        return str(int(value))
-    return str(value)
 
 
 def _canonical_codes(s: pd.Series) -> tuple[np.ndarray, np.ndarray]:
@@ -75,36 +70,134 @@ def _canonical_codes(s: pd.Series) -> tuple[np.ndarray, np.ndarray]:
     return codes, text
 
 
-def _present(codes: np.ndarray, size: int) -> np.ndarray:
-    """Which of ``size`` codes occur (missing, -1, is not counted)."""
+def _first_rows(codes: np.ndarray, text: np.ndarray, offset: int) -> dict[str, int]:
+    """Each value present in ``codes`` with the first (global) row it occurs in."""
+    size = len(text) - 1
     if codes.dtype == np.uint8:
-        return small_histogram(codes, 256)[:size] > 0
-    return np.bincount(codes[codes >= 0], minlength=size) > 0
+        present = np.flatnonzero(np.bincount(codes, minlength=size)[:size])
+    else:
+        present = np.flatnonzero(np.bincount(codes[codes >= 0], minlength=size))
+    out: dict[str, int] = {}
+    for c in present:
+        t = str(text[c])
+        row = offset + int(np.argmax(codes == c))
+        if t not in out or row < out[t]:
+            out[t] = row
+    return out
 
 
-def _is_text(codes: np.ndarray, text: np.ndarray, value: str) -> np.ndarray:
-    """0/1 (int8) per row: does the row's text equal ``value``."""
-    hit = np.array([t == value for t in text], dtype=np.int8)
+def _is_text(codes: np.ndarray, text: np.ndarray, values) -> np.ndarray:
+    """Index into ``values`` (int8) per row; -1 where the row's text is not among them."""
+    pos = {v: i for i, v in enumerate(values)}
+    hit = np.array([pos.get(t, -1) for t in text], dtype=np.int8)
     return np.take(hit, codes)
 
 
 def check_columns(df: pd.DataFrame) -> None:
     dup = df.columns[df.columns.duplicated()]
     if len(dup):
-        raise AuditInputError(f"the table has the column name '{dup[0]}' more than once")
+        raise AuditInputError(f"the table has the column name {shown(dup[0])} more than once")
     if len(df) == 0:
         raise AuditInputError("the table has no rows")
 
 
-def _need(df: pd.DataFrame, col: str | None, role: str) -> None:
-    if col is not None and col not in df.columns:
-        shown = ", ".join(map(str, list(df.columns)[:8]))
-        more = ", ..." if len(df.columns) > 8 else ""
-        raise AuditInputError(f"{role} column '{col}' is not in the table (columns: {shown}{more})")
+def need_columns(columns, cfg) -> None:
+    """Each named outcome column exists (one line naming the first that does not)."""
+    cols = list(columns)
+    for role, setting, col in (("label", "label", cfg.label), ("prediction", "pred", cfg.pred),
+                               ("probability", "score", cfg.score)):
+        if col is not None and col not in cols:
+            listed = ", ".join(shown(c, 30)[1:-1] for c in cols[:8])
+            more = ", ..." if len(cols) > 8 else ""
+            raise AuditInputError(f"{role} column {shown(col)} is not in the table (columns: {listed}{more})",
+                                  setting=setting)
 
 
 def _first_bad(mask: np.ndarray) -> int:
     return int(np.flatnonzero(mask)[0])
+
+
+@dataclass
+class OutcomeProfile:
+    """What the outcome columns of some rows hold; ``a + b`` profiles the union of rows."""
+
+    label_first: dict[str, int] = field(default_factory=dict)
+    pred_first: dict[str, int] = field(default_factory=dict)
+    n_rows: int = 0
+    n_unlabelled: int = 0
+
+    def __add__(self, other: "OutcomeProfile") -> "OutcomeProfile":
+        return OutcomeProfile(_merge_first(self.label_first, other.label_first),
+                              _merge_first(self.pred_first, other.pred_first),
+                              self.n_rows + other.n_rows, self.n_unlabelled + other.n_unlabelled)
+
+
+def _merge_first(a: dict[str, int], b: dict[str, int]) -> dict[str, int]:
+    out = dict(a)
+    for k, v in b.items():
+        if k not in out or v < out[k]:
+            out[k] = v
+    return out
+
+
+def labelled_rows(df: pd.DataFrame, cfg, *, offset: int = 0) -> np.ndarray | None:
+    """Rows to keep: ``None`` when every row has a label. A missing label is an error naming
+    the row unless ``cfg.drop_unlabelled`` is set."""
+    missing = df[cfg.label].isna().to_numpy()
+    if not missing.any():
+        return None
+    if not cfg.drop_unlabelled:
+        raise AuditInputError(f"label column {shown(cfg.label)} has a missing value at "
+                              f"{_row(offset + _first_bad(missing))} (drop_unlabelled=True, --drop-unlabelled, "
+                              "leaves such rows out and counts them)", setting="label")
+    return ~missing
+
+
+def profile_outcomes(df: pd.DataFrame, cfg, *, offset: int = 0, rows: np.ndarray | None = None):
+    """Check the outcome columns of one chunk (labelled rows only) and profile them.
+
+    ``offset`` is the chunk's first data row in the whole table (for messages); ``rows`` maps
+    the chunk's rows to their positions before unlabelled rows were dropped. Returns the
+    profile and a cache that :meth:`OutcomeSpec.apply` may reuse for the same chunk.
+    """
+    where = (lambda i: offset + int(rows[i])) if rows is not None else (lambda i: offset + i)
+    ycodes, ytext = _canonical_codes(df[cfg.label])
+    prof = OutcomeProfile(n_rows=len(df))
+    prof.label_first = {k: where(v) for k, v in _first_rows(ycodes, ytext, 0).items()}
+    cache: dict[str, Any] = {"y": (ycodes, ytext)}
+    if cfg.score is not None:
+        cache["score"] = _check_score(df[cfg.score], cfg.score, where)
+    if cfg.pred is not None:
+        ps = df[cfg.pred]
+        pmiss = ps.isna().to_numpy()
+        if pmiss.any():
+            raise AuditInputError(f"prediction column {shown(cfg.pred)} has a missing value at "
+                                  f"{_row(where(_first_bad(pmiss)))}", setting="pred")
+        pcodes, ptext = _canonical_codes(ps)
+        prof.pred_first = {k: where(v) for k, v in _first_rows(pcodes, ptext, 0).items()}
+        cache["pred"] = (pcodes, ptext)
+    return prof, cache
+
+
+def _check_score(raw: pd.Series, name: str, where) -> np.ndarray:
+    if not pd.api.types.is_numeric_dtype(raw) or pd.api.types.is_bool_dtype(raw):
+        conv = pd.to_numeric(raw, errors="coerce")
+        bad = conv.isna().to_numpy() & raw.notna().to_numpy()
+        if bad.any():
+            i = _first_bad(bad)
+            raise AuditInputError(f"probability column {shown(name)} has a non-numeric value "
+                                  f"{shown(raw.iloc[i])} at {_row(where(i))}", setting="score")
+        raw = conv
+    p = raw.to_numpy(dtype=float)
+    lo, hi = float(p.min()), float(p.max())  # both NaN if any value is NaN
+    if np.isnan(lo) or np.isnan(hi):
+        raise AuditInputError(f"probability column {shown(name)} has a missing value at "
+                              f"{_row(where(_first_bad(np.isnan(p))))}", setting="score")
+    if lo < 0 or hi > 1:
+        i = _first_bad((p < 0) | (p > 1))
+        raise AuditInputError(f"probability column {shown(name)} has value {p[i]:g} at {_row(where(i))}; "
+                              "probabilities must lie in [0, 1]", setting="score")
+    return p
 
 
 def _infer_positive(classes: list[str], column: str) -> str:
@@ -113,103 +206,101 @@ def _infer_positive(classes: list[str], column: str) -> str:
         if low == sorted([neg, pos]):
             return next(c for c in classes if c.lower() == pos)
     raise AuditInputError(
-        f"label column '{column}' has classes {classes[0]!r} and {classes[1]!r}; "
-        "cannot tell which is positive — pass positive=... (CLI: --positive VALUE)"
-    )
+        f"label column {shown(column)} has classes {shown(classes[0])} and {shown(classes[1])}; "
+        "cannot tell which is positive — pass positive=... (CLI: --positive VALUE)", setting="positive")
 
 
-def read_outcomes(
-    df: pd.DataFrame,
-    *,
-    label: str,
-    pred: str | None = None,
-    score: str | None = None,
-    positive: Any = None,
-    threshold: float = 0.5,
-) -> Outcomes:
-    """Validate the label, prediction and probability columns and encode them.
+def _match_class(value: str, classes) -> str | None:
+    """The class a stated value names: its text, or the integral number it spells ("1.0" -> "1")."""
+    if value in classes:
+        return value
+    alt = numeric_text(value)
+    return alt if alt in classes else None
+
+
+@dataclass(frozen=True)
+class OutcomeSpec:
+    """How the outcome columns are read: classes in index order, the positive class, the
+    prediction's source. Fitted once from the whole table's :class:`OutcomeProfile`."""
+
+    label: str
+    pred: str | None
+    score: str | None
+    classes: tuple[str, ...]
+    positive: str
+    positive_inferred: bool
+    prediction_source: str
+    threshold: float
+
+    @property
+    def n_classes(self) -> int:
+        return len(self.classes)
+
+    def apply(self, df: pd.DataFrame, cache: dict | None = None) -> Outcomes:
+        """Encode a chunk (already checked by :func:`profile_outcomes`) as class indices."""
+        cache = cache or {}
+        ycodes, ytext = cache.get("y") or _canonical_codes(df[self.label])
+        y = _is_text(ycodes, ytext, self.classes)
+        p = None
+        if self.score is not None:
+            p = cache.get("score")
+            if p is None:
+                p = pd.to_numeric(df[self.score], errors="coerce").to_numpy(dtype=float)
+        if self.pred is not None:
+            pcodes, ptext = cache.get("pred") or _canonical_codes(df[self.pred])
+            yhat = _is_text(pcodes, ptext, self.classes)
+        else:
+            yhat = (p >= self.threshold).view(np.int8)
+        return Outcomes(y=y, yhat=yhat, score=p, classes=self.classes, positive=self.positive,
+                        positive_inferred=self.positive_inferred, prediction_source=self.prediction_source)
+
+
+def fit_outcomes(profile: OutcomeProfile, cfg) -> OutcomeSpec:
+    """Classes and positive class from the whole table's profile (binary audits: two classes)."""
+    if profile.n_rows == 0:
+        raise AuditInputError("the table has no labelled rows" if profile.n_unlabelled else "the table has no rows")
+    classes = sorted(profile.label_first)
+    label = cfg.label
+    if len(classes) != 2:
+        listed = ", ".join(shown(c, 20)[1:-1] for c in classes[:5]) + (", ..." if len(classes) > 5 else "")
+        raise AuditInputError(
+            f"label column {shown(label)} has {len(classes)} distinct value{'s' if len(classes) != 1 else ''} "
+            f"({listed}); expected two (binary audit)", setting="label")
+    if cfg.positive is None:
+        pos = _infer_positive(classes, label)
+        inferred = True
+    else:
+        pos = _match_class(cfg.positive, classes)
+        inferred = False
+        if pos is None:
+            raise AuditInputError(f"positive class {shown(cfg.positive)} does not occur in label column "
+                                  f"{shown(label)} (classes: {classes[0]}, {classes[1]})", setting="positive")
+    neg = classes[0] if classes[1] == pos else classes[1]
+    if cfg.pred is not None:
+        unknown = {k: v for k, v in profile.pred_first.items() if k not in classes}
+        if unknown:
+            value, row = min(unknown.items(), key=lambda kv: kv[1])
+            raise AuditInputError(f"prediction column {shown(cfg.pred)} has value {shown(value)} at {_row(row)}, "
+                                  f"which is not a class of label column {shown(label)} ({classes[0]}, {classes[1]})",
+                                  setting="pred")
+    return OutcomeSpec(label=label, pred=cfg.pred, score=cfg.score, classes=(neg, pos), positive=pos,
+                       positive_inferred=inferred, prediction_source="column" if cfg.pred is not None else "threshold",
+                       threshold=cfg.threshold)
+
+
+def read_outcomes(df: pd.DataFrame, **settings: Any) -> Outcomes:
+    """Validate and encode the outcome columns of one table (profile, fit and apply at once).
 
     If only ``score`` is given, the prediction is ``score >= threshold``. If both are given,
     counts use ``pred`` and the losses use ``score``.
     """
+    from ..settings import make_config
+
+    cfg = make_config(**settings)
     check_columns(df)
-    _need(df, label, "label")
-    _need(df, pred, "prediction")
-    _need(df, score, "probability")
-    if pred is None and score is None:
-        raise AuditInputError("give a prediction column (pred=..., --pred) or a probability column (score=..., --score)")
-    for role, col in (("prediction", pred), ("probability", score)):
-        if col is not None and col == label:
-            raise AuditInputError(f"{role} column '{col}' is the label column; pick a different column")
-    if not (isinstance(threshold, (int, float)) and 0.0 <= float(threshold) <= 1.0):
-        raise AuditInputError(f"threshold must be a number in [0, 1]; received {threshold!r}")
-
-    ys = df[label]
-    missing = ys.isna().to_numpy()
-    if missing.any():
-        raise AuditInputError(f"label column '{label}' has a missing value at {_row(_first_bad(missing))}")
-    ycodes, ytext_u = _canonical_codes(ys)
-    present = _present(ycodes, len(ytext_u))
-    classes = sorted(set(ytext_u[np.flatnonzero(present)].tolist()))
-    if len(classes) != 2:
-        shown = ", ".join(classes[:5]) + (", ..." if len(classes) > 5 else "")
-        raise AuditInputError(
-            f"label column '{label}' has {len(classes)} distinct value{'s' if len(classes) != 1 else ''} ({shown}); "
-            "expected two (binary audit)"
-        )
-    if positive is None:
-        pos = _infer_positive(classes, label)
-        inferred = True
-    else:
-        pos = canonical(positive)
-        inferred = False
-        if pos not in classes:
-            raise AuditInputError(
-                f"positive class {positive!r} does not occur in label column '{label}' (classes: {classes[0]}, {classes[1]})"
-            )
-    neg = classes[0] if classes[1] == pos else classes[1]
-    y = _is_text(ycodes, ytext_u, pos)
-
-    p = None
-    if score is not None:
-        raw = df[score]
-        if not pd.api.types.is_numeric_dtype(raw) or pd.api.types.is_bool_dtype(raw):
-            conv = pd.to_numeric(raw, errors="coerce")
-            bad = conv.isna().to_numpy() & raw.notna().to_numpy()
-            if bad.any():
-                i = _first_bad(bad)
-                raise AuditInputError(
-                    f"probability column '{score}' has a non-numeric value {str(raw.iloc[i])!r} at {_row(i)}"
-                )
-            raw = conv
-        p = raw.to_numpy(dtype=float)
-        lo, hi = float(p.min()), float(p.max())  # both NaN if any value is NaN
-        if np.isnan(lo) or np.isnan(hi):
-            raise AuditInputError(f"probability column '{score}' has a missing value at {_row(_first_bad(np.isnan(p)))}")
-        if lo < 0 or hi > 1:
-            out = (p < 0) | (p > 1)
-            i = _first_bad(out)
-            raise AuditInputError(
-                f"probability column '{score}' has value {p[i]:g} at {_row(i)}; probabilities must lie in [0, 1]"
-            )
-
-    if pred is not None:
-        ps = df[pred]
-        pmiss = ps.isna().to_numpy()
-        if pmiss.any():
-            raise AuditInputError(f"prediction column '{pred}' has a missing value at {_row(_first_bad(pmiss))}")
-        pcodes, ptext_u = _canonical_codes(ps)
-        unknown = ~np.array([t in classes for t in ptext_u], dtype=bool)[pcodes]
-        if unknown.any():
-            i = _first_bad(unknown)
-            raise AuditInputError(
-                f"prediction column '{pred}' has value {ptext_u[pcodes[i]]!r} at {_row(i)}, which is not a class of "
-                f"label column '{label}' ({classes[0]}, {classes[1]})"
-            )
-        yhat = _is_text(pcodes, ptext_u, pos)
-        source = "column"
-    else:
-        yhat = (p >= float(threshold)).view(np.int8)
-        source = "threshold"
-    return Outcomes(y=y, yhat=yhat, score=p, classes=(neg, pos), positive=pos,
-                    positive_inferred=inferred, prediction_source=source)
+    need_columns(df.columns, cfg)
+    keep = labelled_rows(df, cfg)
+    if keep is not None:
+        df = df[keep]
+    prof, cache = profile_outcomes(df, cfg, rows=None if keep is None else np.flatnonzero(keep))
+    return fit_outcomes(prof, cfg).apply(df, cache)

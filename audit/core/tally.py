@@ -1,45 +1,66 @@
 """Step 3: per-slice sufficient statistics, as sums that add across chunks of rows.
 
 For every slice family (the whole table, each attribute, each pair of attributes) this
-module counts the confusion cells of every slice and sums the per-row losses. Everything
-later (metrics, intervals, tests) is derived from these sums, so a table read in chunks,
-or tallied on several workers, gives the same audit by adding :class:`Tally` objects.
+module counts the confusion cells of every slice and sums named per-row quantities (the
+losses). Everything later (metrics, intervals, tests, fairness) is derived from these sums,
+so a table read in chunks, or tallied on several workers, gives the same audit by adding
+:class:`Tally` objects: ``tally_a + tally_b``.
 
 Layout
 ------
 A slice's position inside its family is the mixed-radix number of its attribute codes
 (first attribute most significant). ``counts[s, y * K + yhat]`` holds the number of rows
-of slice ``s`` with true class ``y`` and predicted class ``yhat`` (``K = 2`` here; the
-layout already fits ``K`` classes). ``sums[s]`` holds Σ log loss, Σ log loss², Σ Brier,
-Σ Brier² over the slice's rows (zeros when no probability is given).
+of slice ``s`` with true class ``y`` and predicted class ``yhat`` for ``K`` classes (K × K
+cells; a binary audit is K = 2). ``sums[s, j]`` holds the sum over the slice's rows of the
+quantity named ``sum_names[j]`` (for a binary audit with probabilities: log loss, its
+square, Brier score, its square).
 
-Two kernels produce identical counts: a compiled one (numba, one pass over the rows
-for all families) and a plain numpy one (``np.bincount`` per family) kept as the
-reference and fallback. Float sums agree to rounding.
+Two kernels produce identical counts: a compiled one (numba, one pass over the rows for all
+families; loaded only for tables where compiling pays off, see :func:`use_compiled`) and a
+plain numpy one (``np.bincount`` per family), the reference. Float sums agree to rounding.
 """
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 
-try:  # the compiled kernel is optional at import time; numpy is the fallback
-    import numba
-    from numba import njit, prange
-except ImportError:  # pragma: no cover - numba is a declared dependency
-    numba = None
-
 #: Probabilities are clipped to [EPS, 1 - EPS] before taking logs.
 EPS = 1e-15
-N_SUMS = 4  # Σ ll, Σ ll², Σ brier, Σ brier²
-#: Rows per block of the compiled kernel (see ``_binary_kernel``); measured in bench/.
+#: The named sums of a binary audit with probabilities, in the compiled kernel's record order.
+LOSS_SUMS = ("log_loss", "log_loss_sq", "brier", "brier_sq")
+N_SUMS = len(LOSS_SUMS)
+#: Rows per block of the compiled kernel (see ``kernels._binary_kernel``); measured in bench/.
 KERNEL_BLOCK = 8192
+#: Rows × families from which the compiled kernels are used by default: below it the numpy
+#: path is faster than loading numba and its cached kernels (about a second).
+COMPILED_MIN_WORK = 20_000_000
 
 
-def row_losses(y: np.ndarray, score: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def numba_available() -> bool:
+    from importlib.util import find_spec
+
+    return find_spec("numba") is not None  # without importing it (about 0.5 s)
+
+
+def use_compiled(n_rows: int, n_families: int, kernel: str = "auto") -> bool:
+    """Whether to use the compiled kernels: ``kernel`` is "compiled", "numpy" or "auto" (by size)."""
+    if kernel == "numpy":
+        return False
+    if kernel == "compiled":
+        return numba_available()
+    return n_rows * max(n_families, 1) >= COMPILED_MIN_WORK and numba_available()
+
+
+def row_losses(y: np.ndarray, score: np.ndarray, *, compiled: bool | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Per-row log loss (natural log, clipped at ``EPS``) and Brier score."""
-    if numba is not None and len(y) > 100_000:
+    if compiled is None:
+        compiled = len(y) > 100_000 and use_compiled(len(y), 1, "auto") and len(y) * 20 >= COMPILED_MIN_WORK
+    if compiled:
+        from .kernels import _losses
+
         return _losses(y.astype(np.int8, copy=False), np.asarray(score, dtype=np.float64), EPS)
     p = np.clip(score, EPS, 1.0 - EPS)
     yb = y.astype(bool)
@@ -48,26 +69,65 @@ def row_losses(y: np.ndarray, score: np.ndarray) -> tuple[np.ndarray, np.ndarray
     return ll, br
 
 
+def small_histogram(codes: np.ndarray, size: int, *, compiled: bool = False) -> np.ndarray:
+    """Counts of each value of a small unsigned integer array."""
+    if compiled:
+        from .kernels import small_histogram as hist
+
+        return hist(codes, size)
+    return np.bincount(codes, minlength=size)
+
+
 @dataclass
 class Tally:
-    """Sums for a list of slice families; ``tally_a + tally_b`` tallies the union of rows."""
+    """Sums for a list of slice families; ``tally_a + tally_b`` tallies the union of rows.
+
+    ``auc`` holds the evidence for per-slice ROC AUC (see ``audit.core.auc``): exact values
+    from one table in memory, which do not add, or score histograms, which do. ``groups``
+    is the fairness module's own tally (protected groups by probability bin), or ``None``.
+    """
 
     families: tuple[tuple[int, ...], ...]
     shapes: tuple[tuple[int, ...], ...]
     offsets: np.ndarray  # start row of each family in counts/sums (len = families + 1)
     counts: np.ndarray   # (slices, K*K) int64
-    sums: np.ndarray     # (slices, N_SUMS) float64
+    sums: np.ndarray     # (slices, len(sum_names)) float64
     n_classes: int = 2
+    sum_names: tuple[str, ...] = LOSS_SUMS
+    auc: Any = None
+    groups: "Tally | None" = None
+    n_unlabelled: int = 0
+    extra: dict = field(default_factory=dict)
 
     def __add__(self, other: "Tally") -> "Tally":
-        if self.families != other.families or self.shapes != other.shapes:
-            raise ValueError("tallies cover different slice families; encode every chunk with the same levels")
-        return Tally(self.families, self.shapes, self.offsets, self.counts + other.counts,
-                     self.sums + other.sums, self.n_classes)
+        if (self.families != other.families or self.shapes != other.shapes or self.n_classes != other.n_classes
+                or self.sum_names != other.sum_names):
+            raise ValueError("tallies cover different slice families; encode every chunk with the same encoding")
+        auc = None
+        if self.auc is not None or other.auc is not None:
+            if self.auc is None or other.auc is None:
+                raise ValueError("only one of the tallies carries ROC AUC evidence")
+            auc = self.auc + other.auc
+        groups = None
+        if self.groups is not None or other.groups is not None:
+            if self.groups is None or other.groups is None:
+                raise ValueError("only one of the tallies carries the fairness tally")
+            groups = self.groups + other.groups
+        extra = {k: self.extra.get(k, 0) + other.extra.get(k, 0) for k in set(self.extra) | set(other.extra)}
+        return Tally(self.families, self.shapes, self.offsets, self.counts + other.counts, self.sums + other.sums,
+                     self.n_classes, self.sum_names, auc, groups, self.n_unlabelled + other.n_unlabelled, extra)
 
     def family(self, k: int) -> tuple[np.ndarray, np.ndarray]:
         a, b = self.offsets[k], self.offsets[k + 1]
         return self.counts[a:b], self.sums[a:b]
+
+    @property
+    def n_rows(self) -> int:
+        return int(self.counts[self.offsets[self.families.index(())]:][0].sum()) if () in self.families \
+            else int(self.family(0)[0].sum())
+
+    def named_sums(self) -> dict[str, np.ndarray]:
+        return {name: self.sums[:, j] for j, name in enumerate(self.sum_names)}
 
 
 def plan_families(n_attributes: int, max_order: int) -> list[tuple[int, ...]]:
@@ -86,119 +146,56 @@ def _layout(families, cards):
     return shapes, offsets
 
 
-def tally_numpy(codes, cards, cell, ll=None, br=None, *, families, n_classes=2) -> Tally:
-    """Reference kernel: one ``np.bincount`` per family and quantity."""
+def tally_numpy(codes, cards, cell, ll=None, br=None, *, families, n_classes=2,
+                weights: dict[str, np.ndarray] | None = None) -> Tally:
+    """Reference kernel: one ``np.bincount`` per family and quantity.
+
+    The named sums are ``weights`` (name -> per-row values) if given, else the binary losses
+    ``LOSS_SUMS`` from ``ll`` and ``br`` (none when ``ll`` is None).
+    """
     kk = n_classes * n_classes
     shapes, offsets = _layout(families, cards)
     total = int(offsets[-1])
+    if weights is None:
+        weights = {} if ll is None else dict(zip(LOSS_SUMS, (ll, ll * ll, br, br * br)))
+    names = tuple(weights)
     counts = np.zeros((total, kk), dtype=np.int64)
-    sums = np.zeros((total, N_SUMS), dtype=np.float64)
+    sums = np.zeros((total, len(names)), dtype=np.float64)
     n = len(cell)
-    weights = [] if ll is None else [ll, ll * ll, br, br * br]
+    cell = np.asarray(cell).astype(np.int64)
     for k, fam in enumerate(families):
         size = int(offsets[k + 1] - offsets[k])
         idx = np.zeros(n, dtype=np.int64)
         for a in fam:
             idx = idx * cards[a] + codes[a]
         counts[offsets[k]:offsets[k + 1]] = np.bincount(idx * kk + cell, minlength=size * kk).reshape(size, kk)
-        for w, wt in enumerate(weights):
-            sums[offsets[k]:offsets[k + 1], w] = np.bincount(idx, weights=wt, minlength=size)
-    return Tally(tuple(families), shapes, offsets, counts, sums, n_classes)
-
-
-if numba is not None:
-
-    @njit(parallel=True, cache=True, nogil=True)
-    def _losses(y, score, eps):  # pragma: no cover - compiled
-        n = y.shape[0]
-        ll = np.empty(n)
-        br = np.empty(n)
-        for i in prange(n):
-            p = min(max(score[i], eps), 1.0 - eps)
-            ll[i] = -np.log(p) if y[i] == 1 else -np.log(1.0 - p)
-            d = score[i] - y[i]
-            br[i] = d * d
-        return ll, br
-
-    @njit(parallel=True, cache=True, nogil=True)
-    def _histogram(codes, size, nth):  # pragma: no cover - compiled
-        # Four interleaved counters per thread: a run of equal codes does not wait on one counter.
-        n = codes.shape[0]
-        out = np.zeros((nth, 4, size), dtype=np.int64)
-        chunk = (n + nth - 1) // nth
-        for t in prange(nth):
-            o = out[t]
-            lo = t * chunk
-            hi = min(n, lo + chunk)
-            stop = lo + (hi - lo) // 4 * 4
-            for i in range(lo, stop, 4):
-                o[0, codes[i]] += 1
-                o[1, codes[i + 1]] += 1
-                o[2, codes[i + 2]] += 1
-                o[3, codes[i + 3]] += 1
-            for i in range(stop, hi):
-                o[0, codes[i]] += 1
-        return out.sum(axis=0).sum(axis=0)
-
-    def small_histogram(codes, size):
-        """Counts of each value of a small unsigned integer array (no int64 copy, unlike np.bincount)."""
-        return _histogram(codes, size, max(1, min(numba.get_num_threads(), 1 + len(codes) // 100_000)))
-
-    @njit(parallel=True, cache=True, nogil=True)
-    def _binary_kernel(gt, cell, ll, br, ga, gb, gcb, off, total, nth, block):  # pragma: no cover - compiled
-        # One record per slice of each group pair: 4 cell counts then Σll, Σll², Σbr, Σbr², kept
-        # together so an update touches one cache line; counts are float64, exact below 2**53.
-        # Each thread takes a contiguous share of the rows and walks it in blocks; within a block
-        # it finishes one group pair before the next, so the updates of a run stay in one table
-        # and the group codes are read as contiguous streams (gt is groups × rows).
-        n = cell.shape[0]
-        nf = ga.shape[0]
-        acc = np.zeros((nth, total * 8), dtype=np.float64)
-        chunk = (n + nth - 1) // nth
-        for t in prange(nth):
-            lo = t * chunk
-            hi = min(n, lo + chunk)
-            o = acc[t]
-            for blo in range(lo, hi, block):
-                bhi = min(hi, blo + block)
-                for k in range(nf):
-                    start = off[k]
-                    ca = gt[ga[k]]
-                    cb = gt[gb[k]]
-                    width = gcb[k]
-                    for r in range(blo, bhi):
-                        base = (start + np.int64(ca[r]) * width + cb[r]) * 8
-                        a = ll[r]
-                        b = br[r]
-                        o[base + cell[r]] += 1.0
-                        o[base + 4] += a
-                        o[base + 5] += a * a
-                        o[base + 6] += b
-                        o[base + 7] += b * b
-        return acc
-
-else:  # pragma: no cover - numba is a declared dependency
-
-    def small_histogram(codes, size):
-        return np.bincount(codes, minlength=size)
+        for w, name in enumerate(names):
+            sums[offsets[k]:offsets[k + 1], w] = np.bincount(idx, weights=weights[name], minlength=size)
+    return Tally(tuple(families), shapes, offsets, counts, sums, n_classes, names)
 
 
 def tally(codes, cards, cell, ll=None, br=None, *, families, n_classes=2, kernel="auto",
           group_limit: int = 96) -> Tally:
-    """Tally every family in ``families`` (tuples of at most two attribute indices).
+    """Tally every family in ``families`` (tuples of attribute indices).
 
-    ``kernel`` is ``"compiled"``, ``"numpy"`` or ``"auto"`` (compiled when numba imports; the
-    compiled kernel has the binary record layout, other class counts use numpy).
+    ``kernel`` is ``"compiled"``, ``"numpy"`` or ``"auto"`` (compiled for large tables, see
+    :func:`use_compiled`; the compiled kernel has the binary record layout and families of at
+    most two attributes, anything else uses numpy).
     """
-    if kernel == "numpy" or numba is None or n_classes != 2 or any(len(f) > 2 for f in families):
-        return tally_numpy(codes, cards, cell, ll, br, families=families, n_classes=n_classes)
     families = tuple(families)
+    if (not use_compiled(len(cell), len(families), kernel) or n_classes != 2
+            or any(len(f) > 2 for f in families)):
+        return tally_numpy(codes, cards, cell, ll, br, families=families, n_classes=n_classes)
     pairs = tuple(f for f in families if len(f) == 2)
     if pairs and all(_derivable(f, pairs) for f in families if len(f) < 2):
         # Count only the pairs; every single and the whole table are their margins.
-        return _from_pairs(_grouped_pairs(codes, cards, cell, ll, br, pairs, n_classes, group_limit),
-                           families, cards)
-    return _compiled(codes, cards, cell, ll, br, families, n_classes)
+        out = _from_pairs(_grouped_pairs(codes, cards, cell, ll, br, pairs, n_classes, group_limit),
+                          families, cards)
+    else:
+        out = _compiled(codes, cards, cell, ll, br, families, n_classes)
+    if ll is None:  # the compiled record always carries the loss sums: drop the zeros
+        out = Tally(out.families, out.shapes, out.offsets, out.counts, out.sums[:, :0], out.n_classes, ())
+    return out
 
 
 def plan_groups(cards, limit: int) -> list[list[int]]:
@@ -315,6 +312,10 @@ def _run_group_kernel(codes, cards, cell, ll, br, groups, gcards, gpairs, n_clas
     gcb = np.array([gcards[p[1]] for p in gpairs], dtype=np.int64)
     if ll is None:
         ll = br = np.zeros(len(cell))
+    import numba
+
+    from .kernels import _binary_kernel
+
     nth = max(1, min(numba.get_num_threads(), 1 + len(cell) // 50_000))
     # Groups × rows matrix of group codes (mixed radix of the members), in the narrowest type;
     # built row by row of the matrix so every numpy step runs over contiguous memory.

@@ -27,11 +27,11 @@ import pandas as pd
 from .compare import two_proportion
 from .correct import adjust
 from ..core.encoding import MISSING
+from ..core.stream import CALIBRATION_BINS
 from ..errors import AuditInputError
 from .intervals import mover_difference, proportion_interval
 from .measure import ratio
 
-CALIBRATION_BINS = 10  # equal-width bins of the predicted probability
 
 
 @dataclass(frozen=True)
@@ -91,57 +91,50 @@ def chouldechova_fpr(prevalence: float, ppv: float, fnr: float) -> float:
     return prevalence / (1 - prevalence) * (1 - ppv) / ppv * (1 - fnr)
 
 
-def assess(attrs, outcomes, cfg) -> FairnessResult:
-    """Fairness table for ``cfg.protected`` attributes (names of encoded audit attributes)."""
-    by_name = {a.name: a for a in attrs}
+def assess(groups, fitted, cfg, *, scoring=None) -> FairnessResult:
+    """Fairness table for ``cfg.protected`` from the fairness tally ``groups`` (protected
+    attributes and their pairs, by probability bin when there are probabilities).
+
+    ``fitted`` is the first pass's result (classes, encoding, protected attribute indices);
+    ``scoring`` is ``(median score, [rows above it per group, one array per family])``.
+    """
+    attrs = fitted.encoding.attributes
     protected = list(cfg.protected or ())
-    for p in protected:
-        if p not in by_name:
-            raise AuditInputError(f"protected attribute '{p}' is not among the audited attributes "
-                                  f"({', '.join(by_name) or 'none'})")
-    classes = outcomes.classes
+    classes = fitted.outcomes.classes
+    k_cls = len(classes)
     if cfg.favorable is None:
-        fav_pos = True
+        fav_idx = 1
     else:
-        from ..core.outcomes import canonical
+        from ..core.outcomes import _match_class
 
-        fv = canonical(cfg.favorable)
-        if fv not in classes:
-            raise AuditInputError(f"favourable outcome '{cfg.favorable}' is not a class of the label "
-                                  f"({classes[0]}, {classes[1]})")
-        fav_pos = fv == classes[1]
-    favorable = classes[1] if fav_pos else classes[0]
-    y = outcomes.y.astype(np.int64)
-    yhat = outcomes.yhat.astype(np.int64)
-    fav = yhat if fav_pos else 1 - yhat
-    score = outcomes.score
-    n_total = len(y)
-    median = None if score is None else float(np.median(score))
-    above = None if score is None else (score > median).astype(np.int64)
-
-    families: list[tuple[str, list[str], np.ndarray, list[str]]] = []
-    for p in protected:
-        a = by_name[p]
-        families.append((p, list(a.levels), a.codes, [p]))
-    for i in range(len(protected)):
-        for j in range(i + 1, len(protected)):
-            a, b = by_name[protected[i]], by_name[protected[j]]
-            codes = a.codes.astype(np.int64) * b.cardinality + b.codes
-            levels = [f"{x} & {z}" for x in a.levels for z in b.levels]
-            families.append((f"{a.name} & {b.name}", levels, codes, [a.name, b.name]))
+        fav_idx = classes.index(_match_class(cfg.favorable, classes))
+    fav_pos = fav_idx == 1
+    favorable = classes[fav_idx]
+    has_score = "score" in groups.sum_names
+    sums = groups.named_sums()
+    n_total = int(groups.family(0)[0].sum())
+    median = None if scoring is None else scoring[0]
 
     tables = []
     references: dict[str, str] = {}
-    missing = {p: int(by_name[p].n_missing) for p in protected}
-    for label, levels, codes, parts in families:
+    missing = {p: int(attrs[fitted.protected[i]].n_missing) for i, p in enumerate(protected)}
+    for q, fam in enumerate(groups.families):
+        parts = [attrs[a] for a in (fam[:-1] if has_score else fam)]
+        label = " & ".join(a.name for a in parts)
+        levels = [" & ".join(combo) for combo in _product([a.levels for a in parts])]
         k = len(levels)
-        cnt = lambda w: np.bincount(codes, weights=w, minlength=k).astype(np.int64)  # noqa: E731
-        n = np.bincount(codes, minlength=k).astype(np.int64)
-        tp = cnt(y * yhat)
-        fp = cnt((1 - y) * yhat)
-        fn = cnt(y * (1 - yhat))
-        tn = n - tp - fp - fn
-        sel = cnt(fav)
+        lo_, hi_ = groups.offsets[q], groups.offsets[q + 1]
+        cells = groups.counts[lo_:hi_]
+        if has_score:
+            by_bin = cells.reshape(k, CALIBRATION_BINS, k_cls * k_cls)
+            cells = by_bin.sum(axis=1)
+        cube = cells.reshape(k, k_cls, k_cls)  # [group, true class, predicted class]
+        tp = cube[:, 1, 1].astype(np.int64)
+        fp = cube[:, 0, 1].astype(np.int64)
+        fn = cube[:, 1, 0].astype(np.int64)
+        tn = cube[:, 0, 0].astype(np.int64)
+        n = cube.sum(axis=(1, 2)).astype(np.int64)
+        sel = cube[:, :, fav_idx].sum(axis=1).astype(np.int64)
         df = pd.DataFrame({"attribute": label, "group": levels, "n": n})
         keep = n > 0
         df = df[keep].reset_index(drop=True)
@@ -155,12 +148,16 @@ def assess(attrs, outcomes, cfg) -> FairnessResult:
         for r, (num, den) in rates.items():
             df[r] = ratio(num, den)
             df[f"{r}_low"], df[f"{r}_high"] = proportion_interval(num, den, method=cfg.interval, level=cfg.level)
-        if score is not None:
-            ssum = np.bincount(codes, weights=score, minlength=k)[keep]
-            df["mean_score"] = ssum / n
+        if has_score:
+            sb = sums["score"][lo_:hi_].reshape(k, CALIBRATION_BINS)
+            nb = by_bin.sum(axis=2)
+            yb = by_bin.reshape(k, CALIBRATION_BINS, k_cls, k_cls)[:, :, 1, :].sum(axis=2)
+            df["mean_score"] = sb.sum(axis=1)[keep] / n
             df["calibration_gap"] = df["mean_score"] - df["base_rate"]
-            df["calibration_error"] = _ece(codes, score, y, k)[keep]
-            df["scoring_rate"] = np.bincount(codes, weights=above, minlength=k)[keep] / n
+            with np.errstate(invalid="ignore", divide="ignore"):
+                # Σ_b (n_b / n) |mean predicted_b − observed rate_b| = Σ_b |Σp_b − Σy_b| / n
+                df["calibration_error"] = (np.abs(sb - yb).sum(axis=1) / nb.sum(axis=1))[keep]
+            df["scoring_rate"] = scoring[1][q][keep] / n
         miss = np.array([MISSING in g.split(" & ") for g in levels])[keep]
         small = df["share"].to_numpy() < cfg.min_group_share
         df["excluded"] = miss | small
@@ -206,13 +203,14 @@ def assess(attrs, outcomes, cfg) -> FairnessResult:
                     df[f"{r_name}{suffix}"] = np.nan
             df["equalized_odds_gap"] = np.nan
         df["impact_ratio"] = np.where(df["excluded"], np.nan, df["impact_ratio"])
-        if score is not None:
+        if has_score:
             rs = df.loc[df["is_reference"], "scoring_rate"]
             rsv = float(rs.iloc[0]) if len(rs) else np.nan
             df["scoring_impact_ratio"] = np.where(df["excluded"] | (rsv == 0), np.nan, df["scoring_rate"] / rsv)
         tables.append(df)
 
-    groups = pd.concat(tables, ignore_index=True)
+    groups_df = pd.concat(tables, ignore_index=True)
+    groups = groups_df
     pcols = [c for c in ("selection_p", "tpr_p", "fpr_p", "ppv_p") if c in groups.columns]
     flat = groups[pcols].to_numpy(dtype=float).ravel()
     q, m = adjust(flat, method=cfg.correction)
@@ -229,19 +227,11 @@ def assess(attrs, outcomes, cfg) -> FairnessResult:
                           notes=notes)
 
 
-def _ece(codes, score, y, k) -> np.ndarray:
-    """Expected calibration error per group over CALIBRATION_BINS equal-width probability bins:
-    Σ_b (n_b / n) |mean predicted_b − observed rate_b|."""
-    b = np.minimum((score * CALIBRATION_BINS).astype(np.int64), CALIBRATION_BINS - 1)
-    idx = codes.astype(np.int64) * CALIBRATION_BINS + b
-    size = k * CALIBRATION_BINS
-    n = np.bincount(idx, minlength=size).reshape(k, CALIBRATION_BINS)
-    s = np.bincount(idx, weights=score, minlength=size).reshape(k, CALIBRATION_BINS)
-    o = np.bincount(idx, weights=y, minlength=size).reshape(k, CALIBRATION_BINS)
-    tot = n.sum(axis=1)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        gap = np.abs(s - o)  # n_b |mean_p - obs| = |Σp - Σy|
-        return gap.sum(axis=1) / tot
+def _product(level_lists):
+    out = [()]
+    for levels in level_lists:
+        out = [o + (x,) for o in out for x in levels]
+    return out
 
 
 def _reference(cfg, label: str, df: pd.DataFrame) -> str:
@@ -259,14 +249,18 @@ def _reference(cfg, label: str, df: pd.DataFrame) -> str:
 
 
 def _base_rates_differ(g: pd.DataFrame, alpha: float) -> bool:
-    """Pearson chi-square test of equal base rates across the groups (scipy)."""
-    from scipy.stats import chi2_contingency
+    """Pearson's chi-square test of equal base rates across the groups (groups × 2 table, no
+    continuity correction)."""
+    from scipy.special import chdtrc  # upper tail of the chi-square distribution
 
-    pos = g["tp"] + g["fn"]
-    table = np.stack([pos.to_numpy(), (g["n"] - pos).to_numpy()], axis=1)
-    if (table.sum(axis=0) == 0).any():
+    pos = (g["tp"] + g["fn"]).to_numpy(dtype=float)
+    table = np.stack([pos, g["n"].to_numpy(dtype=float) - pos], axis=1)
+    col = table.sum(axis=0)
+    if (col == 0).any():
         return False
-    return bool(chi2_contingency(table, correction=False).pvalue < alpha)
+    expected = table.sum(axis=1, keepdims=True) * col[None, :] / table.sum()
+    stat = float(((table - expected) ** 2 / expected).sum())
+    return bool(chdtrc(len(table) - 1, stat) < alpha)
 
 
 def _notes(groups: pd.DataFrame, cfg) -> list[str]:

@@ -1,0 +1,462 @@
+"""Tables as streams of chunks, and the two passes over them: fit, then tally.
+
+A table is a :class:`Source`: a DataFrame in memory (one chunk), or a CSV or Parquet file
+(or a folder of Parquet files, or a glob of CSV files) read ``chunk_rows`` rows at a time.
+:func:`fit` makes the first pass: it checks every row's outcome columns and profiles every
+attribute column, then fits the outcome classes and the :class:`~audit.core.encoding.Encoding`.
+:func:`tally_source` makes the second pass: each chunk is encoded with that one encoding and
+tallied, and the chunk tallies are added. Memory is bounded by the chunk, not the table.
+
+What is not a sum is handled so that a chunked run equals the in-memory run: quantile bin
+edges come from the first ``FIT_SAMPLE`` values in both; ROC AUC comes from per-slice score
+histograms with a stated error bound (``audit.core.auc``); the fairness module's median
+score is exact in both (the first pass finds the histogram bins holding the median, the
+second keeps the few values in those bins).
+"""
+from __future__ import annotations
+
+import glob
+import hashlib
+import os
+from dataclasses import dataclass, field
+from typing import Any, Callable, Iterator
+
+import numpy as np
+import pandas as pd
+
+from ..errors import AuditInputError, shown
+from .auc import ExactAuc, hist_bins, score_histogram, slice_auc
+from .encoding import Encoding, choose_columns, fit_encoding, profile_column
+from .outcomes import (OutcomeSpec, check_columns, fit_outcomes, labelled_rows, need_columns, profile_outcomes)
+from .tally import Tally, plan_families, row_losses, tally, tally_numpy, use_compiled
+
+#: Equal-width probability bins of the fairness module's calibration error.
+CALIBRATION_BINS = 10
+#: Bins of the first pass's score histogram (to find the median exactly in the second pass).
+MEDIAN_BINS = 1 << 20
+
+Progress = Callable[[str, float], None]
+
+
+# ----------------------------------------------------------------------------- sources
+@dataclass
+class SourceInfo:
+    """Where the table came from: file name (or ``None`` for a DataFrame), SHA-256 of its bytes."""
+
+    name: str | None
+    sha256: str | None
+    n_bytes: int | None
+
+
+class Source:
+    """A table read as chunks: ``chunks()`` yields ``(first data row, DataFrame)``."""
+
+    info: SourceInfo
+    chunked: bool = True
+
+    def chunks(self) -> Iterator[tuple[int, pd.DataFrame]]:  # pragma: no cover - interface
+        raise NotImplementedError
+
+
+class FrameSource(Source):
+    chunked = False
+
+    def __init__(self, df: pd.DataFrame, info: SourceInfo | None = None):
+        self.df = df
+        self.info = info or SourceInfo(None, None, None)
+
+    def chunks(self):
+        yield 0, self.df
+
+
+def _digest(paths: list[str]) -> tuple[str, int]:
+    h = hashlib.sha256()
+    size = 0
+    for p in paths:
+        with open(p, "rb") as fh:
+            for block in iter(lambda: fh.read(1 << 20), b""):
+                h.update(block)
+                size += len(block)
+    return h.hexdigest(), size
+
+
+def _expand(path: str, exts: tuple[str, ...]) -> list[str]:
+    if any(ch in path for ch in "*?["):
+        files = sorted(glob.glob(path))
+    elif os.path.isdir(path):
+        files = sorted(os.path.join(dp, f) for dp, _, fs in os.walk(path) for f in fs
+                       if f.lower().endswith(exts) and not f.startswith((".", "_")))
+    else:
+        files = [path]
+    if not files:
+        raise AuditInputError(f"no {' or '.join(exts)} files match {shown(path)}")
+    for f in files:
+        if not os.path.isfile(f):
+            raise AuditInputError(f"input file {shown(f)} does not exist")
+    return files
+
+
+class ParquetSource(Source):
+    """Parquet file(s) read in record batches of ``chunk_rows`` rows (pyarrow)."""
+
+    def __init__(self, path: str, chunk_rows: int):
+        self.files = _expand(path, (".parquet", ".pq"))
+        self.chunk_rows = chunk_rows
+        digest, size = _digest(self.files)
+        self.info = SourceInfo(os.path.basename(path.rstrip("/")) or path, digest, size)
+
+    def chunks(self):
+        import pyarrow.parquet as pq
+
+        offset = 0
+        for f in self.files:
+            try:
+                pf = pq.ParquetFile(f)
+                batches = pf.iter_batches(batch_size=self.chunk_rows)
+                for batch in batches:
+                    df = batch.to_pandas()
+                    yield offset, df
+                    offset += len(df)
+            except AuditInputError:
+                raise
+            except Exception as exc:  # pyarrow raises many types; ours is one line
+                raise AuditInputError(f"input file {shown(os.path.basename(f))} is not a readable Parquet file "
+                                      f"({type(exc).__name__})") from None
+
+
+class CsvSource(Source):
+    """CSV file(s) read in blocks of ``chunk_rows`` rows. Column types are read from the first
+    block and held for every later block, so a column cannot change type between chunks."""
+
+    def __init__(self, path: str, chunk_rows: int, *, encoding: str | None = None):
+        self.files = _expand(path, (".csv", ".tsv", ".txt", ".csv.gz", ".csv.bz2", ".csv.xz", ".csv.zip"))
+        self.chunk_rows = chunk_rows
+        self.encoding = encoding or "utf-8"
+        digest, size = _digest(self.files)
+        self.info = SourceInfo(os.path.basename(path.rstrip("/")) or path, digest, size)
+        self._dtypes: dict[str, Any] | None = None
+
+    def _reader(self, f: str, dtypes=None):
+        sep = "\t" if f.lower().endswith((".tsv", ".tsv.gz")) else ","
+        return pd.read_csv(f, sep=sep, chunksize=self.chunk_rows, dtype=dtypes, encoding=self.encoding,
+                           encoding_errors="strict", low_memory=False)
+
+    def chunks(self):
+        offset = 0
+        try:
+            if self._dtypes is None:
+                first = next(iter(self._reader(self.files[0])), None)
+                if first is None or len(first) == 0:
+                    raise AuditInputError(f"input file {shown(os.path.basename(self.files[0]))} has no data rows")
+                self._dtypes = {c: ("float64" if pd.api.types.is_numeric_dtype(t) and not pd.api.types.is_bool_dtype(t)
+                                    else ("boolean" if pd.api.types.is_bool_dtype(t) else "str"))
+                                for c, t in first.dtypes.items()}
+            for f in self.files:
+                for df in self._reader(f, self._dtypes):
+                    yield offset, df
+                    offset += len(df)
+        except AuditInputError:
+            raise
+        except UnicodeDecodeError as exc:
+            raise AuditInputError(f"input file {shown(os.path.basename(f))} is not {self.encoding} text near byte "
+                                  f"{exc.start}; pass encoding=... (--encoding NAME)", setting="encoding") from None
+        except (ValueError, TypeError) as exc:
+            msg = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+            raise AuditInputError(f"input file {shown(os.path.basename(f))} cannot be read in chunks after data row "
+                                  f"{offset}: {shown(msg, 120)[1:-1]} (a column may change type part-way; list it "
+                                  "with categorical=[...])") from None
+        except Exception as exc:
+            raise AuditInputError(f"input file {shown(os.path.basename(f))} is not readable CSV "
+                                  f"({type(exc).__name__})") from None
+
+
+def open_source(data, *, chunk_rows: int | None, encoding: str | None = None) -> Source:
+    """A DataFrame, or a path (file, folder of Parquet files, glob of CSV files) read in chunks."""
+    if isinstance(data, pd.DataFrame):
+        return FrameSource(data)
+    if not isinstance(data, (str, os.PathLike)):
+        raise AuditInputError(f"data must be a pandas DataFrame or a path to a CSV or Parquet file; received "
+                              f"{type(data).__name__}")
+    path = os.fspath(data)
+    low = path.lower().rstrip("/")
+    is_parquet = low.endswith((".parquet", ".pq")) or (os.path.isdir(path) and glob.glob(os.path.join(path, "**",
+                                                                                                        "*.parquet"),
+                                                                                           recursive=True))
+    if chunk_rows is None:
+        if any(ch in path for ch in "*?[") or os.path.isdir(path):
+            chunk_rows = 1_000_000  # a folder or glob is always streamed
+        else:
+            from .read import read_table
+
+            df, info = read_table(path, encoding=encoding) if encoding else read_table(path)
+            return FrameSource(df, SourceInfo(info.name, info.sha256, info.n_bytes))
+    if is_parquet:
+        return ParquetSource(path, chunk_rows)
+    return CsvSource(path, chunk_rows, encoding=encoding)
+
+
+# ----------------------------------------------------------------------------- the fit pass
+@dataclass
+class Fitted:
+    """Everything fitted in the first pass: the outcome classes, the attribute encoding, the
+    slice families, and what the fairness module needs (protected attributes, median bins)."""
+
+    outcomes: OutcomeSpec
+    encoding: Encoding
+    families: list[tuple[int, ...]]
+    protected: list[int]
+    n_rows: int
+    n_unlabelled: int
+    chunked: bool
+    score_hist: np.ndarray | None = None
+    median_bins: tuple[int, int] | None = None
+    exact_median: float | None = None
+    notes: list[str] = field(default_factory=list)
+
+    @property
+    def cards(self) -> list[int]:
+        return self.encoding.cards
+
+
+def _order_stat_bins(hist: np.ndarray, n: int) -> tuple[int, int]:
+    c = np.cumsum(hist)
+    lo = int(np.searchsorted(c, (n - 1) // 2, side="right"))
+    hi = int(np.searchsorted(c, n // 2, side="right"))
+    return lo, hi
+
+
+def fit(source: Source, cfg, *, progress: Progress | None = None, keep: dict | None = None) -> Fitted:
+    """First pass: check outcomes row by row, profile attributes, fit classes and encoding.
+
+    ``keep`` (a dict) receives the single chunk of a DataFrame source and its caches, so the
+    in-memory run encodes and tallies without reading the table twice.
+    """
+    note = progress or (lambda stage, frac: None)
+    prof_out = None
+    profiles = None
+    cols: list[str] | None = None
+    hist = None
+    n_unlabelled = 0
+    for offset, df in source.chunks():
+        if cols is None:
+            check_columns(df)
+            need_columns(df.columns, cfg)
+            reserved = [c for c in (cfg.label, cfg.pred, cfg.score) if c is not None]
+            cols = choose_columns(df.columns, cfg.attributes, reserved=reserved)
+            if cfg.protected:
+                for p in cfg.protected:
+                    if p not in df.columns:
+                        raise AuditInputError(f"protected attribute {shown(p)} is not among the audited attributes "
+                                              "(it is not in the table)", setting="protected")
+                    if p not in cols:
+                        raise AuditInputError(f"protected attribute {shown(p)} is not among the audited attributes",
+                                              setting="protected")
+        elif list(df.columns) != list(source_columns):
+            raise AuditInputError(f"data row {offset + 1} starts a part of the table with other columns")
+        source_columns = list(df.columns)
+        if len(df) == 0:
+            continue
+        rows = labelled_rows(df, cfg, offset=offset)
+        if rows is not None:
+            n_unlabelled += int((~rows).sum())
+            df = df[rows]
+            rowpos = np.flatnonzero(rows)
+        else:
+            rowpos = None
+        po, ocache = profile_outcomes(df, cfg, offset=offset, rows=rowpos)
+        acache: dict = {}
+        pc = [profile_column(df[c], c, as_text=c in cfg.categorical, cache=acache) for c in cols]
+        prof_out = po if prof_out is None else prof_out + po
+        profiles = pc if profiles is None else [a + b for a, b in zip(profiles, pc)]
+        if cfg.score is not None and cfg.protected and source.chunked:
+            b = np.minimum((ocache["score"] * MEDIAN_BINS).astype(np.int64), MEDIAN_BINS - 1)
+            h = np.bincount(b, minlength=MEDIAN_BINS)
+            hist = h if hist is None else hist + h
+        if keep is not None and not source.chunked:
+            keep.update(df=df, outcomes=ocache, attributes=acache)
+        note("reading and checking", 0.05)
+    if cols is None or prof_out is None:
+        raise AuditInputError("the table has no rows" if not n_unlabelled else "the table has no labelled rows")
+    prof_out.n_unlabelled = n_unlabelled
+    spec = fit_outcomes(prof_out, cfg)
+    enc = fit_encoding(profiles, n_bins=cfg.bins, bin_edges=cfg.bin_edges, max_levels=cfg.max_levels,
+                       categorical=cfg.categorical, numeric=cfg.numeric)
+    if not enc.attributes:
+        why = "; ".join(f"{k}: {v}" for k, v in enc.skipped.items()) or "the table has no other columns"
+        raise AuditInputError(f"no attribute column left to slice by ({why})", setting="attributes")
+    names = enc.names
+    protected = []
+    for p in cfg.protected or ():
+        if p not in names:
+            raise AuditInputError(f"protected attribute {shown(p)} is not among the audited attributes "
+                                  f"({enc.skipped.get(p, 'not sliced')})", setting="protected")
+        protected.append(names.index(p))
+    _check_fairness_settings(cfg, spec, enc)
+    fitted = Fitted(spec, enc, plan_families(len(names), cfg.max_order), protected, prof_out.n_rows, n_unlabelled,
+                    source.chunked)
+    if hist is not None:
+        fitted.score_hist = hist
+        fitted.median_bins = _order_stat_bins(hist, prof_out.n_rows)
+    return fitted
+
+
+def _check_fairness_settings(cfg, spec: OutcomeSpec, enc: Encoding) -> None:
+    """Favourable outcome and reference groups name real classes and groups (before any counting)."""
+    if not cfg.protected:
+        return
+    from .outcomes import _match_class
+
+    if cfg.favorable is not None and _match_class(cfg.favorable, spec.classes) is None:
+        raise AuditInputError(f"favourable outcome {shown(cfg.favorable)} is not a class of the label "
+                              f"({', '.join(spec.classes)})", setting="favorable")
+    by_name = {a.name: a for a in enc.attributes}
+    labels = {p: by_name[p].levels for p in cfg.protected}
+    prot = list(cfg.protected)
+    for i in range(len(prot)):
+        for j in range(i + 1, len(prot)):
+            a, b = by_name[prot[i]], by_name[prot[j]]
+            labels[f"{a.name} & {b.name}"] = tuple(f"{x} & {z}" for x in a.levels for z in b.levels)
+    for attr, group in cfg.reference.items():
+        if attr not in labels:
+            raise AuditInputError(f"reference group given for {shown(attr)}, which is not a protected attribute or "
+                                  f"a pair of them ({', '.join(labels)})", setting="reference")
+        if group not in labels[attr]:
+            raise AuditInputError(f"reference group {shown(group)} does not occur in protected attribute {shown(attr)}",
+                                  setting="reference")
+
+
+# ----------------------------------------------------------------------------- the tally pass
+def _fair_families(fitted: Fitted, has_score: bool) -> tuple[list[tuple[int, ...]], int | None]:
+    """Families of the fairness tally: each protected attribute and each pair, by probability bin."""
+    p = fitted.protected
+    sb = len(fitted.cards) if has_score else None
+    fams = [(a,) for a in p] + [(p[i], p[j]) for i in range(len(p)) for j in range(i + 1, len(p))]
+    if sb is not None:
+        fams = [f + (sb,) for f in fams]
+    return fams, sb
+
+
+def tally_chunk(df: pd.DataFrame, fitted: Fitted, cfg, *, offset: int = 0, caches: dict | None = None,
+                kernel: str = "auto") -> Tally:
+    """Encode one chunk with the fitted encoding and tally it (slices, AUC evidence, fairness)."""
+    caches = caches or {}
+    out = fitted.outcomes.apply(df, caches.get("outcomes"))
+    codes = fitted.encoding.apply(df, caches.get("attributes"), offset=offset)
+    cards = fitted.cards
+    k = fitted.outcomes.n_classes
+    cell = (out.y.astype(np.int16) * k + out.yhat).astype(np.int8)
+    n = len(cell)
+    compiled = use_compiled(n, len(fitted.families), kernel)
+    ll = br = None
+    if out.score is not None:
+        ll, br = row_losses(out.y, out.score, compiled=compiled and n > 100_000)
+    t = tally(codes, cards, cell, ll, br, families=fitted.families, n_classes=k,
+              kernel="compiled" if compiled else "numpy")
+    if out.score is not None and cfg.auc_max_order >= 0:
+        sel = [i for i, f in enumerate(fitted.families) if len(f) <= cfg.auc_max_order]
+        fams = [fitted.families[i] for i in sel]
+        if fitted.chunked:
+            n_slices = sum(int(t.offsets[i + 1] - t.offsets[i]) for i in sel)
+            t.auc = score_histogram(codes, cards, out.y, out.score, families=fams, bins=hist_bins(n_slices))
+        else:
+            sub_counts = np.concatenate([t.family(i)[0] for i in sel])
+            t.auc = ExactAuc(tuple(fams), slice_auc(codes, cards, out.y, out.score, families=fams,
+                                                    counts=sub_counts, compiled=compiled))
+    if fitted.protected:
+        t.groups = _fair_tally(codes, cards, cell, out, fitted, k)
+    return t
+
+
+def _fair_tally(codes, cards, cell, out, fitted: Fitted, k: int) -> Tally:
+    fams, sb = _fair_families(fitted, out.score is not None)
+    weights: dict[str, np.ndarray] = {}
+    codes = list(codes)
+    cards = list(cards)
+    extra = {}
+    if sb is not None:
+        score = out.score
+        codes.append(np.minimum((score * CALIBRATION_BINS).astype(np.int64), CALIBRATION_BINS - 1))
+        cards.append(CALIBRATION_BINS)
+        weights["score"] = score
+        if fitted.chunked:
+            lo, hi = fitted.median_bins
+            b = np.minimum((score * MEDIAN_BINS).astype(np.int64), MEDIAN_BINS - 1)
+            weights["above_median_bins"] = (b > hi).astype(float)
+            near = np.flatnonzero((b >= lo) & (b <= hi))
+            extra["median_candidates"] = _Candidates.of(codes, cards, fams, near, score[near])
+        else:
+            med = float(np.median(score))
+            fitted.exact_median = med
+            weights["above_median"] = (score > med).astype(float)
+    t = tally_numpy(codes, cards, cell, families=fams, n_classes=k, weights=weights)
+    t.extra = extra
+    return t
+
+
+@dataclass
+class _Candidates:
+    """Scores near the median (in the histogram bins holding it) with each row's fairness slice:
+    a few values that settle the exact median and each group's count above it. Adds by joining."""
+
+    values: np.ndarray
+    slots: np.ndarray  # (rows, families): slice index within each family
+
+    @classmethod
+    def of(cls, codes, cards, fams, rows, values):
+        slots = np.zeros((len(rows), len(fams)), dtype=np.int64)
+        for q, fam in enumerate(fams):
+            idx = np.zeros(len(rows), dtype=np.int64)
+            for a in fam[:-1]:  # leave out the probability bin: counts are per group
+                idx = idx * cards[a] + np.asarray(codes[a])[rows]
+            slots[:, q] = idx
+        return cls(np.asarray(values, dtype=float), slots)
+
+    def __add__(self, other):
+        if isinstance(other, int) and other == 0:
+            return self
+        return _Candidates(np.concatenate([self.values, other.values]), np.concatenate([self.slots, other.slots]))
+
+    def __radd__(self, other):
+        return self.__add__(other)
+
+
+def median_and_above(tally_groups: Tally, fitted: Fitted) -> tuple[float, list[np.ndarray]]:
+    """The exact median score and, per fairness family, each group's rows scoring above it."""
+    hist = fitted.score_hist
+    n = int(hist.sum())
+    lo, hi = fitted.median_bins
+    cand: _Candidates = tally_groups.extra["median_candidates"]
+    below = int(hist[:lo].sum())
+    vals = np.sort(cand.values)
+    k_lo, k_hi = (n - 1) // 2 - below, n // 2 - below
+    med = float((vals[k_lo] + vals[k_hi]) / 2.0)
+    above_bins = tally_groups.named_sums()["above_median_bins"]
+    out = []
+    cards = fitted.cards
+    for q, fam in enumerate(tally_groups.families):
+        a, b = tally_groups.offsets[q], tally_groups.offsets[q + 1]
+        per = above_bins[a:b].reshape(-1, CALIBRATION_BINS).sum(axis=1)
+        size = int(np.prod([cards[x] for x in fam[:-1]]))
+        near = np.bincount(cand.slots[:, q][cand.values > med], minlength=size)
+        out.append(per + near)
+    return med, out
+
+
+def tally_source(source: Source, fitted: Fitted, cfg, *, keep: dict | None = None, kernel: str = "auto",
+                 progress: Progress | None = None) -> Tally:
+    """Second pass: the sum of every chunk's tally (the kept chunk of a DataFrame is reused)."""
+    note = progress or (lambda stage, frac: None)
+    if keep and "df" in keep:
+        return tally_chunk(keep["df"], fitted, cfg, caches=keep, kernel=kernel)
+    total = None
+    for offset, df in source.chunks():
+        if len(df) == 0:
+            continue
+        rows = labelled_rows(df, cfg, offset=offset)
+        if rows is not None:
+            df = df[rows]
+        t = tally_chunk(df, fitted, cfg, offset=offset, kernel=kernel)
+        total = t if total is None else total + t
+        note("counting slices", 0.1 + 0.5 * min(1.0, (offset + len(df)) / max(fitted.n_rows, 1)))
+    total.n_unlabelled = fitted.n_unlabelled
+    return total

@@ -1,0 +1,140 @@
+"""The result of an audit: one object every output is a view of."""
+from __future__ import annotations
+
+import platform
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from .. import __version__
+from ..core.encoding import AttributeCoding, Encoding
+from ..core.stream import SourceInfo
+from ..errors import AuditInputError
+from ..settings import AuditConfig
+from .intervals import f1_interval, proportion_interval
+from .measure import METRICS, RATES, count_frame, metric_values
+
+ALL = "(all)"
+#: Older name of the attribute record kept in results.
+AttributeInfo = AttributeCoding
+
+
+@dataclass(frozen=True)
+class AuditResult:
+    """Everything an audit found; the CLI files, the page, the charts and the report read it.
+
+    ``slices`` has one row per non-empty slice (orders 0, 1, 2), tested or not; its columns
+    are documented in DEVELOPERS.md. ``overall`` maps metric names to values and intervals
+    for the whole table. ``family_size`` is the number m of tests corrected together.
+    """
+
+    slices: pd.DataFrame
+    overall: dict[str, Any]
+    config: AuditConfig
+    source: SourceInfo
+    n_rows: int
+    classes: tuple[str, ...]
+    positive_inferred: bool
+    prediction_source: str
+    attributes: tuple[AttributeCoding, ...]
+    skipped: dict[str, str]
+    family_size: int
+    timings: dict[str, float] = field(default_factory=dict, compare=False)
+    version: str = __version__
+    fairness: Any = None
+    encoding: Encoding | None = field(default=None, compare=False, repr=False)
+    n_unlabelled: int = 0
+    method: dict[str, Any] = field(default_factory=dict, compare=False)
+    tally: Any = field(default=None, compare=False, repr=False)
+
+    @property
+    def metric(self):
+        return METRICS[self.config.metric]
+
+    def tested(self) -> pd.DataFrame:
+        return self.slices[self.slices["status"] == "tested"]
+
+    def flagged(self) -> pd.DataFrame:
+        """Flagged slices, worst first."""
+        f = self.slices[self.slices["flagged"]]
+        return f.sort_values("rank", kind="stable")
+
+    def ranked(self) -> pd.DataFrame:
+        """Tested slices, worst first."""
+        return self.tested().sort_values("rank", kind="stable")
+
+    def slice(self, name: str) -> pd.Series:
+        """One slice by name: ``"a=x & b=y"`` in any order of its parts; unknown names get
+        the nearest names as suggestions."""
+        hit = self.slices.index[self.slices["slice"] == name]
+        if len(hit) == 0:
+            canon = self._canonical_name(name)
+            hit = self.slices.index[self.slices["slice"] == canon] if canon else hit
+        if len(hit) == 0:
+            import difflib
+
+            near = difflib.get_close_matches(name, self.slices["slice"].tolist(), n=3, cutoff=0.6)
+            hint = f"; did you mean {' or '.join(repr(x) for x in near)}?" if near else ""
+            raise AuditInputError(f"no slice named {name!r}{hint}")
+        return self.slices.loc[hit[0]]
+
+    def _canonical_name(self, name: str) -> str | None:
+        order = {a.name: i for i, a in enumerate(self.attributes)}
+        parts = [p.strip() for p in name.split(" & ")]
+        keyed = []
+        for p in parts:
+            attr, sep, _ = p.partition("=")
+            if not sep or attr.strip() not in order:
+                return None
+            keyed.append((order[attr.strip()], p))
+        return " & ".join(p for _, p in sorted(keyed))
+
+    def save(self, folder, **options):
+        """Write the same files as the command line (see ``audit.faces.export.save``)."""
+        from ..faces.export import save
+
+        return save(self, folder, **options)
+
+    def rest_counts(self, name: str) -> dict[str, int]:
+        """Confusion counts of the rows outside slice ``name``."""
+        s = self.slice(name)
+        whole = self.slice(ALL)
+        return {k: int(whole[k] - s[k]) for k in ("tp", "fp", "fn", "tn", "n")}
+
+    def compare(self, name: str) -> pd.DataFrame:
+        """Every metric of slice ``name`` beside the same metric for the rest of the rows, with intervals.
+
+        Columns: ``metric``, ``slice``, ``slice_low``, ``slice_high``, ``rest``, ``rest_low``, ``rest_high``.
+        """
+        s = self.slice(name)
+        rest = self.rest_counts(name)
+        cells = ("tn", "fp", "fn", "tp")  # the cell order of the tally
+        c = count_frame(np.array([[int(s[k]) for k in cells], [rest[k] for k in cells]]))
+        v = metric_values(c, None)
+        lvl, meth = self.config.level, self.config.interval
+        rows = []
+        for r, (num, den) in RATES.items():
+            lo, hi = proportion_interval(c[num], c[den], method=meth, level=lvl)
+            rows.append((r, v[r][0], lo[0], hi[0], v[r][1], lo[1], hi[1]))
+        lo, hi = f1_interval(c["tp"], c["fp"], c["fn"], method=meth, level=lvl)
+        rows.append(("f1", v["f1"][0], lo[0], hi[0], v["f1"][1], lo[1], hi[1]))
+        out = pd.DataFrame(rows, columns=["metric", "slice", "slice_low", "slice_high", "rest", "rest_low",
+                                          "rest_high"])
+        total_errors = int(self.slice(ALL)["errors"])
+        out.attrs["share_of_errors"] = float(s["errors"] / total_errors) if total_errors else float("nan")
+        return out
+
+    def status_counts(self) -> dict[str, int]:
+        st = self.slices.loc[self.slices["order"] > 0, "status"].value_counts()
+        out = {k: int(v) for k, v in st.items()}
+        out["flagged"] = int(self.slices["flagged"].sum())
+        return out
+
+    @property
+    def environment(self) -> dict[str, str]:
+        import scipy
+
+        return {"python": platform.python_version(), "fissure": __version__, "numpy": np.__version__,
+                "pandas": pd.__version__, "scipy": scipy.__version__}

@@ -1,0 +1,268 @@
+"""Statistics from sums: ``summarize(tally, fitted, config)`` turns a tally (of one table, or
+the sum of many chunks' tallies) into the audit's result — every metric, interval, test,
+correction, flag, rank, the overall figures and the fairness table. It reads nothing but the
+tally and what the first pass fitted, so a tally made anywhere (in memory, in chunks, on
+other machines) gives the same result.
+"""
+from __future__ import annotations
+
+import time
+from typing import Any, Sequence
+
+import numpy as np
+import pandas as pd
+
+from ..core.encoding import AttributeCoding
+from ..core.stream import Fitted, SourceInfo, median_and_above
+from ..core.tally import Tally
+from ..settings import AuditConfig
+from .compare import cohens_d, cohens_h, two_proportion, welch_p
+from .correct import adjust
+from .intervals import f1_interval, mean_interval, mover_difference, proportion_interval, welch_difference
+from .measure import METRICS, RATE_COLUMNS, RATES, count_frame, metric_values
+from .methods import COUNT_WORDS
+from .rank import flag_and_rank
+from .result import ALL, AuditResult
+
+
+def _names(fam: tuple[int, ...], attrs: Sequence[AttributeCoding]) -> tuple[list, list, list, list, list]:
+    """Slice names and per-position attribute/value columns for one family, in code order."""
+    if not fam:
+        return [ALL], [""], [""], [""], [""]
+    if len(fam) == 1:
+        a = attrs[fam[0]]
+        vals = list(a.levels)
+        return [f"{a.name}={v}" for v in vals], [a.name] * len(vals), vals, [""] * len(vals), [""] * len(vals)
+    a, b = attrs[fam[0]], attrs[fam[1]]
+    size = a.cardinality * b.cardinality
+    names = [f"{a.name}={x} & {b.name}={y}" for x in a.levels for y in b.levels]
+    va = [x for x in a.levels for _ in b.levels]
+    return names, [a.name] * size, va, [b.name] * size, list(b.levels) * a.cardinality
+
+
+def _metric_block(cfg: AuditConfig, c: dict, rc: dict, v: dict, rv: dict, sums, rsums) -> dict[str, np.ndarray]:
+    """Value, interval, rest value, difference with interval, test and effect size for the audited metric."""
+    m = METRICS[cfg.metric]
+    lvl, meth = cfg.level, cfg.interval
+    n1 = len(c["n"])
+    if m.kind == "rate":
+        k1, d1 = c[m.numerator], c[m.denominator]
+        k2, d2 = rc[m.numerator], rc[m.denominator]
+        val, rval = v[m.name], rv[m.name]
+        lo1, hi1 = proportion_interval(k1, d1, method=meth, level=lvl)
+        lo2, hi2 = proportion_interval(k2, d2, method=meth, level=lvl)
+        diff, dlo, dhi = mover_difference(val, lo1, hi1, rval, lo2, hi2)
+        p, test = two_proportion(k1, d1, k2, d2)
+        eff = cohens_h(val, rval)
+        eff_name = "cohens_h"
+        support, rsupport = d1, d2
+    elif m.kind == "f1":
+        val, rval = v["f1"], rv["f1"]
+        lo1, hi1 = f1_interval(c["tp"], c["fp"], c["fn"], method=meth, level=lvl)
+        lo2, hi2 = f1_interval(rc["tp"], rc["fp"], rc["fn"], method=meth, level=lvl)
+        diff, dlo, dhi = mover_difference(val, lo1, hi1, rval, lo2, hi2)
+        p, test = two_proportion(c["tp"], c["tp_fp_fn"], rc["tp"], rc["tp_fp_fn"])
+        eff = cohens_h(val, rval)
+        eff_name = "cohens_h"
+        support, rsupport = c["tp_fp_fn"], rc["tp_fp_fn"]
+    else:
+        j = 0 if m.name == "log_loss" else 2
+        val, rval = v[m.name], rv[m.name]
+        lo1, hi1 = mean_interval(c["n"], sums[:, j], sums[:, j + 1], level=lvl)
+        diff, dlo, dhi, se, df, var1, var2 = welch_difference(
+            c["n"], sums[:, j], sums[:, j + 1], rc["n"], rsums[:, j], rsums[:, j + 1], level=lvl)
+        p = welch_p(diff, se, df)
+        test = np.full(n1, "welch", dtype=object)
+        eff = cohens_d(diff, var1, var2)
+        eff_name = "cohens_d"
+        support, rsupport = c["n"], rc["n"]
+    return {"metric_value": val, "metric_low": lo1, "metric_high": hi1, "rest_value": rval,
+            "diff": diff, "diff_low": dlo, "diff_high": dhi, "effect_size": eff,
+            "p_value": p, "test": test, "_support": support, "_rsupport": rsupport, "_eff_name": eff_name}
+
+
+def restated_outcomes(tl: Tally, fitted: Fitted) -> dict[int, str]:
+    """Attributes whose values restate the label or the prediction (each value goes with one
+    class, different values with different classes): slicing by them audits the outcome itself."""
+    k = fitted.outcomes.n_classes
+    out: dict[int, str] = {}
+    for q, fam in enumerate(tl.families):
+        if len(fam) != 1:
+            continue
+        a = fitted.encoding.attributes[fam[0]]
+        cube = tl.family(q)[0].reshape(-1, k, k)
+        n = cube.sum(axis=(1, 2))
+        cube = cube[n > 0]
+        if len(cube) != k or a.has_missing:
+            continue
+        for what, col, margin in (("label", fitted.outcomes.label, cube.sum(axis=2)),
+                                  ("prediction", fitted.outcomes.pred, cube.sum(axis=1))):
+            single = (margin > 0).sum(axis=1) == 1
+            if single.all() and len(set(margin.argmax(axis=1).tolist())) == k:
+                src = f"'{col}'" if col else "(probability ≥ threshold)"
+                out[fam[0]] = f"restates the {what} {src}: each value goes with one class, so it describes the outcome"
+                break
+    return out
+
+
+def summarize(tl: Tally, fitted: Fitted, cfg: AuditConfig, *, source: SourceInfo | None = None,
+              timings: dict[str, float] | None = None, t0: float | None = None) -> AuditResult:
+    """The audit's result from a tally alone (see module docstring)."""
+    t = time.perf_counter()
+    t0 = t if t0 is None else t0
+    timings = dict(timings or {})
+    attrs = list(fitted.encoding.attributes)
+    skipped = dict(fitted.encoding.skipped)
+    families = list(tl.families)
+    restated = restated_outcomes(tl, fitted)
+    for i, why in restated.items():
+        skipped[attrs[i].name] = why
+    keep_fam = [q for q, f in enumerate(families) if not any(a in restated for a in f)]
+    rows = np.concatenate([np.arange(tl.offsets[q], tl.offsets[q + 1]) for q in keep_fam])
+    has_score = fitted.outcomes.score is not None
+    counts = tl.counts[rows]
+    sums = tl.sums[rows] if has_score else None
+    order = np.concatenate([np.full(tl.offsets[q + 1] - tl.offsets[q], len(families[q])) for q in keep_fam])
+    auc = np.full(len(tl.counts), np.nan)
+    auc_bound = None
+    if tl.auc is not None:
+        pos = np.concatenate([np.arange(tl.offsets[families.index(f)], tl.offsets[families.index(f) + 1])
+                              for f in tl.auc.families])
+        values, bound = tl.auc.result()
+        auc[pos] = values
+        if fitted.chunked:
+            auc_bound = float(np.nanmax(bound)) if np.isfinite(bound).any() else 0.0
+    auc = auc[rows]
+    n_rows = int(counts[order == 0][0].sum())
+    names, a1, v1, a2, v2 = [], [], [], [], []
+    for q in keep_fam:
+        nm, x1, y1, x2, y2 = _names(families[q], attrs)
+        names += nm; a1 += x1; v1 += y1; a2 += x2; v2 += y2
+    c = count_frame(counts)
+    keep = (c["n"] > 0) | (order == 0)
+    idx = np.flatnonzero(keep)
+    counts, order, auc = counts[idx], order[idx], auc[idx]
+    if sums is not None:
+        sums = sums[idx]
+    c = {k: val[idx] for k, val in c.items()}
+    whole_counts = counts[order == 0][0]
+    rest = whole_counts[None, :] - counts
+    rc = count_frame(rest)
+    rsums = None if sums is None else sums[order == 0][0][None, :] - sums
+    v = metric_values(c, sums)
+    rv = metric_values(rc, rsums)
+    lvl, meth = cfg.level, cfg.interval
+
+    cols: dict[str, Any] = {
+        "slice": np.asarray(names, dtype=object)[idx], "order": order,
+        "attribute_1": np.asarray(a1, dtype=object)[idx], "value_1": np.asarray(v1, dtype=object)[idx],
+        "attribute_2": np.asarray(a2, dtype=object)[idx], "value_2": np.asarray(v2, dtype=object)[idx],
+        "n": c["n"], "share": c["n"] / n_rows,
+        "actual_pos": c["actual_pos"], "pred_pos": c["pred_pos"],
+        "tp": c["tp"], "fp": c["fp"], "fn": c["fn"], "tn": c["tn"], "errors": c["errors"],
+    }
+    for r, (num, den) in RATES.items():
+        cols[r] = v[r]
+        cols[f"{r}_low"], cols[f"{r}_high"] = proportion_interval(c[num], c[den], method=meth, level=lvl)
+    cols["f1"] = v["f1"]
+    cols["f1_low"], cols["f1_high"] = f1_interval(c["tp"], c["fp"], c["fn"], method=meth, level=lvl)
+    cols["f1_neg"], cols["macro_f1"], cols["jaccard"] = v["f1_neg"], v["macro_f1"], v["jaccard"]
+    cols["jaccard_low"], cols["jaccard_high"] = proportion_interval(c["tp"], c["tp_fp_fn"], method=meth, level=lvl)
+    cols["log_loss"], cols["brier"] = v["log_loss"], v["brier"]
+    if sums is not None:
+        cols["log_loss_low"], cols["log_loss_high"] = mean_interval(c["n"], sums[:, 0], sums[:, 1], level=lvl)
+        cols["brier_low"], cols["brier_high"] = mean_interval(c["n"], sums[:, 2], sums[:, 3], level=lvl)
+    else:
+        for k in ("log_loss_low", "log_loss_high", "brier_low", "brier_high"):
+            cols[k] = np.full(len(idx), np.nan)
+    cols["roc_auc"] = auc
+
+    mb = _metric_block(cfg, c, rc, v, rv, sums, rsums)
+    m = METRICS[cfg.metric]
+    cols["metric"] = np.full(len(idx), cfg.metric, dtype=object)
+    cols["rest_n"] = rc["n"]
+    for k in ("metric_value", "metric_low", "metric_high", "rest_value", "diff", "diff_low", "diff_high",
+              "effect_size"):
+        cols[k] = mb[k]
+
+    support, rsupport = mb["_support"], mb["_rsupport"]
+    sup_title = COUNT_WORDS[m.denominator]
+    status = np.full(len(idx), "tested", dtype=object)
+    reason = np.full(len(idx), "", dtype=object)
+    ms, mms = cfg.min_support, cfg.min_metric_support
+    few_rows = c["n"] < ms
+    few_metric = support < mms
+    rest_small = (rc["n"] < ms) | (rsupport < mms)
+    undefined = np.isnan(mb["metric_value"]) | np.isnan(mb["rest_value"]) | np.isnan(mb["p_value"])
+    reason[undefined] = "metric undefined in the slice or the rest"
+    status = np.where(undefined, "undefined", status)
+    reason[rest_small] = f"the rest has fewer than {ms} rows or {mms} {sup_title}"
+    status = np.where(rest_small, "no_rest", status)
+    idx_m = np.flatnonzero(few_metric)
+    reason[idx_m] = [f"{int(v)} {sup_title} < {mms}" for v in support[idx_m]]
+    status = np.where(few_metric, "below_support", status)
+    idx_r = np.flatnonzero(few_rows)
+    reason[idx_r] = [f"{int(v)} rows < {ms}" for v in c["n"][idx_r]]
+    status = np.where(few_rows, "below_support", status)
+    status = np.where(order == 0, "whole_table", status)
+    reason[order == 0] = "the reference population"
+    tested = status == "tested"
+    p = np.where(tested, mb["p_value"], np.nan)
+    cols["test"] = np.where(tested, mb["test"], "")
+    cols["p_value"] = p
+    q, m_family = adjust(p, method=cfg.correction)
+    cols["q_value"] = q
+    cols["status"] = status
+    cols["status_reason"] = reason
+    cols.update(flag_and_rank(cols, alpha=cfg.alpha, higher_is_worse=m.higher_is_worse))
+    df = pd.DataFrame(cols)
+
+    whole = df.iloc[0]
+    overall = {"n": int(whole["n"]), "tp": int(whole["tp"]), "fp": int(whole["fp"]), "fn": int(whole["fn"]),
+               "tn": int(whole["tn"])}
+    for k in RATE_COLUMNS + ["f1", "jaccard", "log_loss", "brier"]:
+        overall[k] = _num(whole[k])
+        if f"{k}_low" in df.columns:
+            overall[f"{k}_low"], overall[f"{k}_high"] = _num(whole[f"{k}_low"]), _num(whole[f"{k}_high"])
+    for k in ("f1_neg", "macro_f1", "roc_auc"):
+        overall[k] = _num(whole[k])
+    kept_attrs = tuple(a for i, a in enumerate(attrs) if i not in restated)
+    timings["statistics"] = time.perf_counter() - t
+    method: dict[str, Any] = {
+        "reading": "in chunks" if fitted.chunked else "in memory",
+        "roc_auc": ("exact" if not fitted.chunked else
+                    f"from per-slice score histograms of {tl.auc.bins} bins; largest bound on the error: "
+                    f"{auc_bound:.2g}") if tl.auc is not None else "not computed",
+    }
+    if auc_bound is not None:
+        method["roc_auc_error_bound"] = auc_bound
+    fairness = None
+    if fitted.protected:
+        from .fairness import assess
+
+        scoring = None
+        if "score" in tl.groups.sum_names:
+            if fitted.chunked:
+                scoring = median_and_above(tl.groups, fitted)
+            else:
+                sums_g = tl.groups.named_sums()["above_median"]
+                per = []
+                for q, fam in enumerate(tl.groups.families):
+                    a_, b_ = tl.groups.offsets[q], tl.groups.offsets[q + 1]
+                    per.append(sums_g[a_:b_].reshape(-1, 10).sum(axis=1))
+                scoring = (fitted.exact_median, per)
+        fairness = assess(tl.groups, fitted, cfg, scoring=scoring)
+    timings["total"] = time.perf_counter() - t0
+    spec = fitted.outcomes
+    return AuditResult(slices=df, overall=overall, config=cfg, source=source or SourceInfo(None, None, None),
+                       n_rows=n_rows, classes=spec.classes, positive_inferred=spec.positive_inferred,
+                       prediction_source=spec.prediction_source, attributes=kept_attrs, skipped=skipped,
+                       family_size=m_family, timings=timings, fairness=fairness, encoding=fitted.encoding,
+                       n_unlabelled=fitted.n_unlabelled, method=method, tally=tl)
+
+
+
+
+def _num(x) -> float | None:
+    x = float(x)
+    return None if np.isnan(x) else x
