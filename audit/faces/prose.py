@@ -88,3 +88,184 @@ def method_notes(result) -> dict[str, Any]:
         "roc_auc": (f"computed for slices of order ≤ {cfg.auc_max_order}" if cfg.auc_max_order >= 0
                     else "not computed"),
     }
+
+
+def fmt_p(x) -> str:
+    """A p-value or adjusted p-value to two significant digits (8e-38 stays 8e-38, never 0.0).
+
+    >>> fmt_p(8e-38), fmt_p(0.0123), fmt_p(0.5), fmt_p(0.0), fmt_p(float("nan"))
+    ('8e-38', '0.012', '0.5', '< 1e-300', '—')
+    """
+    try:
+        xf = float(x)
+    except (TypeError, ValueError):
+        return "—"
+    if xf != xf:
+        return "—"
+    if xf == 0.0:
+        return "< 1e-300"  # below the smallest double the tests can return
+    return f"{xf:.2g}"
+
+
+#: The four group-fairness criteria tested against the reference group: key, title, rate column.
+FAIRNESS_CRITERIA = (
+    ("selection", "selection rate", "selection_rate"),
+    ("tpr", "true-positive rate", "tpr"),
+    ("fpr", "false-positive rate", "fpr"),
+    ("ppv", "positive predictive value", "ppv"),
+)
+
+
+def disadvantage_when_higher(criterion: str, favorable_is_positive: bool) -> bool:
+    """Whether a group is at a disadvantage when its rate is *higher* than the reference's.
+
+    The rule, stated from the person's side: a group is at a disadvantage when its members are
+    given the favourable prediction less often than the reference group's members with the same
+    true outcome (selection rate: all rows; TPR: actual positives; FPR: actual negatives), or when
+    its favourable predictions are held to a higher bar / its unfavourable predictions are less
+    often borne out (PPV). So with the positive class favourable: lower selection rate, lower TPR,
+    lower FPR, higher PPV; with the negative class favourable (e.g. a delinquency model, where
+    "not delinquent" is favourable): lower selection rate, higher TPR, higher FPR, lower PPV.
+
+    >>> [disadvantage_when_higher(c, True) for c in ("selection", "tpr", "fpr", "ppv")]
+    [False, False, False, True]
+    >>> [disadvantage_when_higher(c, False) for c in ("selection", "tpr", "fpr", "ppv")]
+    [False, True, True, False]
+    """
+    if criterion == "selection":
+        return False
+    if criterion in ("tpr", "fpr"):
+        return not favorable_is_positive
+    if criterion == "ppv":
+        return favorable_is_positive
+    raise KeyError(criterion)
+
+
+def _meaning(criterion: str, higher: bool, fav: str, unfav: str, pos: str, neg: str, fav_is_pos: bool) -> str:
+    if criterion == "selection":
+        return f"predicted '{fav}' (favourable) {'more' if higher else 'less'} often"
+    if criterion in ("tpr", "fpr"):
+        actual = pos if criterion == "tpr" else neg
+        gets_fav_more = higher == fav_is_pos
+        return f"among actual '{actual}', given the favourable '{fav}' {'more' if gets_fav_more else 'less'} often"
+    # ppv: share of predicted positives that are actual positives
+    if fav_is_pos:
+        return (f"its '{pos}' (favourable) predictions are {'more' if higher else 'less'} often borne out"
+                + (" (a higher bar)" if higher else " (a lower bar)"))
+    return f"its '{pos}' (unfavourable) predictions are {'more' if higher else 'less'} often borne out"
+
+
+def fairness_findings(result) -> "pd.DataFrame":
+    """Every fairness flag as one row per criterion, with its direction in words.
+
+    A group's ``fairness_flag`` is raised by any criterion whose adjusted p-value is at most
+    alpha, or by the four-fifths check; this lists each such criterion. Columns: ``attribute``,
+    ``group``, ``reference``, ``criterion`` (``selection``, ``tpr``, ``fpr``, ``ppv``,
+    ``four_fifths``), ``title``, ``value``, ``reference_value``, ``q_value`` (NaN for the
+    four-fifths check), ``higher`` (the group's rate is above the reference's),
+    ``disadvantaged`` (see :func:`disadvantage_when_higher`), ``direction`` (e.g. "lower
+    selection rate than 'female'"), ``meaning`` and ``reading`` ("at a disadvantage" or "in
+    the group's favour"). Empty without protected attributes.
+    """
+    import pandas as pd
+
+    cols = ["attribute", "group", "reference", "criterion", "title", "value", "reference_value", "q_value",
+            "higher", "disadvantaged", "direction", "meaning", "reading"]
+    fr = result.fairness
+    if fr is None:
+        return pd.DataFrame(columns=cols)
+    neg, pos = (str(c) for c in result.classes)
+    fav_is_pos = bool(fr.favorable_is_positive)
+    fav, unfav = (pos, neg) if fav_is_pos else (neg, pos)
+    alpha = result.config.alpha
+    g = fr.groups
+    rows = []
+    for _, r in g[g["fairness_flag"].astype(bool)].iterrows():
+        attr = r["attribute"]
+        ref = fr.references.get(attr, "")
+        ref_row = g[(g["attribute"] == attr) & g["is_reference"].astype(bool)]
+        for key, title, col in FAIRNESS_CRITERIA:
+            q = r.get(f"{key}_q")
+            if q is None or not (float(q) <= alpha):
+                continue
+            v = float(r[col])
+            rv = float(ref_row[col].iloc[0]) if len(ref_row) else float("nan")
+            higher = bool(float(r[f"{key}_diff"]) > 0)
+            bad = higher == disadvantage_when_higher(key, fav_is_pos)
+            rows.append([attr, r["group"], ref, key, title, v, rv, float(q), higher, bad,
+                         f"{'higher' if higher else 'lower'} {title} than '{ref}'",
+                         _meaning(key, higher, fav, unfav, pos, neg, fav_is_pos),
+                         "at a disadvantage" if bad else "in the group's favour"])
+        if bool(r["below_four_fifths"]):
+            rv = float(ref_row["selection_rate"].iloc[0]) if len(ref_row) else float("nan")
+            rows.append([attr, r["group"], ref, "four_fifths", "impact ratio", float(r["impact_ratio"]), 1.0,
+                         float("nan"), False, True,
+                         f"selection rate under four-fifths of the reference '{ref}'",
+                         f"impact ratio {float(r['impact_ratio']):.3f} < 0.8 (predicted '{fav}' "
+                         f"{float(r['selection_rate']):.1%} vs {rv:.1%})",
+                         "at a disadvantage"])
+    return pd.DataFrame(rows, columns=cols)
+
+
+def finding_text(row) -> str:
+    """One line for a fairness finding: 'sex=male: lower selection rate than 'female' (0.61 vs 0.80, adjusted p
+    0.0012): predicted '0' (favourable) less often — at a disadvantage'."""
+    if row["criterion"] == "four_fifths":
+        nums = ""
+    else:
+        nums = f" ({row['value']:.3f} vs {row['reference_value']:.3f}, adjusted p {fmt_p(row['q_value'])})"
+    return f"{row['attribute']}={row['group']}: {row['direction']}{nums}: {row['meaning']} — {row['reading']}"
+
+
+def _num(x, digits=4) -> str:
+    try:
+        xf = float(x)
+    except (TypeError, ValueError):
+        return str(x)
+    return "—" if xf != xf else f"{xf:.{digits}f}"
+
+
+def terminal_summary(result, top: int = 10, *, gate=None) -> str:
+    """The few lines the command line prints: overall metrics, slice counts, the worst slices,
+    fairness flags with their direction, the gate and the caution."""
+    m = result.metric
+    st = result.status_counts()
+    o = result.overall
+    shown = [(m.name, m.name)] + [(k, t) for k, t in (("accuracy", "accuracy"), ("recall", "recall"),
+                                                      ("precision", "precision"), ("f1", "F1"),
+                                                      ("log_loss", "log loss")) if k != m.name]
+    overall = "  ".join(f"{t} {_num(o.get(k))}" for k, t in shown if o.get(k) is not None)
+    lines = [
+        f"fissure {result.version}: {result.n_rows} rows, positive class '{result.classes[1]}'"
+        + (" (inferred)" if result.positive_inferred else ""),
+        f"overall {overall}",
+        f"slices: {st.get('tested', 0)} tested (m = {result.family_size}), {st.get('below_support', 0)} below support, "
+        f"{st['flagged']} flagged at {result.config.correction} {result.config.alpha:g}",
+    ]
+    if result.skipped:
+        lines.append("skipped: " + "; ".join(f"{k} ({v})" for k, v in result.skipped.items()))
+    ranked = result.ranked().head(top)
+    if len(ranked):
+        lines.append(f"worst slices by {m.name} (slice − rest, {int(round(result.config.level * 100))}% interval):")
+        w = min(60, max(len(s) for s in ranked["slice"]))
+        for _, r in ranked.iterrows():
+            flag = "FLAG" if r["flagged"] else "    "
+            name = r["slice"] if len(r["slice"]) <= w else r["slice"][: w - 1] + "…"
+            lines.append(f"  {int(r['rank']):>3} {flag} {name:<{w}} n={int(r['n']):<7} {_num(r['metric_value'])} "
+                         f"diff {_num(r['diff'], 3):>7} [{_num(r['diff_low'], 3)}, {_num(r['diff_high'], 3)}] "
+                         f"q={fmt_p(r['q_value'])}")
+    fr = result.fairness
+    if fr is not None:
+        found = fairness_findings(result)
+        n_groups = len(found.drop_duplicates(["attribute", "group"])) if len(found) else 0
+        lines.append(f"fairness ({', '.join(fr.references)}; favourable outcome: predicted '{fr.favorable}'): "
+                     f"{n_groups} group(s) flagged, {len(found)} finding(s)")
+        for _, r in found.head(top).iterrows():
+            lines.append("  " + finding_text(r))
+        if len(found) > top:
+            lines.append(f"  … {len(found) - top} more in report.html and fairness.csv")
+    if gate is not None and gate.checks:
+        lines.append("release gate: " + ("BLOCKED — " + "; ".join(gate.reasons) if gate.blocked
+                                         else f"passed ({', '.join(gate.checks)} checked)"))
+    lines.append("Flags are statistical signals to investigate, not findings of discrimination or legal conclusions.")
+    return "\n".join(lines)
