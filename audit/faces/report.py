@@ -1,36 +1,37 @@
 """The governance slice report: one self-contained HTML file (and optionally a PDF) built
-from the audit result. Every user-supplied string is HTML-escaped; Plotly's script is
-inlined once; element ids are fixed so the same audit gives the same file apart from the
-line that carries the date.
+from the audit result. Every user-supplied string is HTML-escaped; the chart library is
+inlined once (a smaller official bundle of the same plotly.js version when it is shipped,
+else the full one); element ids are fixed so the same audit gives the same file apart from
+the line that carries the date.
 """
 from __future__ import annotations
 
 import datetime as _dt
 import html
 import os
+import re
 import shutil
 import subprocess
 import tempfile
 
-import plotly
-import plotly.io as pio
-
-from . import charts
-from .prose import method_notes
+from .prose import CAUTION, fairness_findings, finding_text, fmt_p, limitations, method_notes
 
 SECTIONS = [
-    ("identity", "1. Audit identity"),
-    ("data", "2. Data examined"),
-    ("method", "3. How the numbers were made"),
-    ("findings", "4. What the audit found"),
-    ("fairness", "5. Group fairness"),
-    ("limits", "6. Limits of this audit"),
-    ("cautions", "7. Cautions on reading the flags"),
+    ("opening", "1. Summary for the reviewer"),
+    ("identity", "2. Audit identity"),
+    ("data", "3. Data examined"),
+    ("method", "4. How the numbers were made"),
+    ("findings", "5. What the audit found"),
+    ("fairness", "6. Group fairness"),
+    ("limits", "7. Limits of this audit"),
     ("signoff", "8. Review and sign-off"),
     ("reproduce", "9. Reproducing this audit"),
 ]
 
-from .prose import CAUTION, limitations  # noqa: E402  (wording shared with summary.json)
+#: plotly.js "cartesian" distribution (npm plotly.js-cartesian-dist-min, MIT licence, header kept):
+#: every trace type the charts use (scatter, bar, heatmap) at about a third of the full bundle.
+VENDORED_PLOTLY = os.path.join(os.path.dirname(os.path.abspath(__file__)), "plotly-cartesian.min.js")
+_VENDORED_VERSION = re.compile(r"plotly\.js \(cartesian - minified\) v(\d+\.\d+\.\d+)")
 
 CSS = """
 :root { --ink:#1d3557; --flag:#d1651f; --muted:#5c6470; --rule:#d5dae1; }
@@ -39,17 +40,22 @@ body { font-family: 'DejaVu Sans', Arial, sans-serif; color: var(--ink); max-wid
 h1 { font-size: 24px; margin-bottom: .2em; } h2 { font-size: 18px; border-bottom: 2px solid var(--ink);
      padding-bottom: .2em; margin-top: 2em; } h3 { font-size: 15px; margin-top: 1.4em; }
 table { border-collapse: collapse; margin: .6em 0 1em; font-size: 12.5px; }
+table.wide { font-size: 11.5px; }
 th, td { border: 1px solid var(--rule); padding: 3px 7px; text-align: left; vertical-align: top; }
 th { background: #eef2f7; } td.num { text-align: right; font-variant-numeric: tabular-nums; }
 .flag { color: var(--flag); font-weight: bold; } .muted { color: var(--muted); }
+.favour { color: var(--ink); font-style: italic; }
 .caution { border-left: 5px solid var(--flag); background: #fdf3ec; padding: .6em 1em; margin: 1em 0; }
+.gate-blocked { border: 2px solid var(--flag); padding: .5em 1em; } .gate-passed { border: 2px solid var(--ink);
+     padding: .5em 1em; } .gate-none { border: 1px dashed var(--rule); padding: .5em 1em; }
 pre { background: #f4f6f9; padding: .8em; overflow-x: auto; font-size: 12px; white-space: pre-wrap; }
-.chart { width: 900px; max-width: 100%; margin: .6em 0; page-break-inside: avoid; }
-.blank { display: inline-block; min-width: 16em; border-bottom: 1px solid var(--ink); height: 1.2em; }
+.chart { width: 900px; max-width: 100%; margin: .6em 0 0; page-break-inside: avoid; }
+figure { margin: 0 0 1.2em; } figcaption { font-size: 12.5px; color: var(--muted); max-width: 900px; }
+.blank { display: inline-block; min-width: 12em; border-bottom: 1px solid var(--ink); height: 1.2em; }
 @page { margin: 16mm 14mm; }  /* no fixed size: prints on A4 or Letter as the printer is set */
 @media print {
   body { max-width: none; margin: 0; font-size: 11px; }
-  section { page-break-before: always; } section#identity { page-break-before: avoid; }
+  section { page-break-before: always; } section#opening { page-break-before: avoid; }
   .chart { width: 170mm; height: auto; } table { page-break-inside: auto; } tr { page-break-inside: avoid; }
 }
 """
@@ -71,55 +77,170 @@ def _f(x, digits=4) -> str:
 
 
 def _p(x) -> str:
-    try:
-        xf = float(x)
-    except (TypeError, ValueError):
-        return "—"
-    return "—" if xf != xf else (f"{xf:.2e}" if xf < 1e-3 else f"{xf:.4f}")
+    return fmt_p(x)
 
 
-def _table(header, rows, num_cols=()) -> str:
-    out = ["<table><thead><tr>" + "".join(f"<th>{e(h)}</th>" for h in header) + "</tr></thead><tbody>"]
+def _table(header, rows, num_cols=(), cls: str = "") -> str:
+    klass = f" class='{cls}'" if cls else ""
+    out = [f"<table{klass}><thead><tr>" + "".join(f"<th>{e(h)}</th>" for h in header) + "</tr></thead><tbody>"]
     for r in rows:
         cells = []
         for i, v in enumerate(r):
-            cls = ' class="num"' if i in num_cols else ""
-            cells.append(f"<td{cls}>{v}</td>")
+            c = ' class="num"' if i in num_cols else ""
+            cells.append(f"<td{c}>{v}</td>")
         out.append("<tr>" + "".join(cells) + "</tr>")
     out.append("</tbody></table>")
     return "".join(out)
 
 
-def _figure(fig, div_id: str) -> str:
+def _figure(fig, div_id: str, caption: str = "") -> str:
+    import plotly.io as pio
+
     fig = fig.update_layout(width=900)
     body = pio.to_html(fig, full_html=False, include_plotlyjs=False, div_id=div_id,
                        config={"displaylogo": False, "responsive": False, "displayModeBar": False})
-    return f'<div class="chart">{body}</div>'
+    cap = f"<figcaption><b>How to read it.</b> {e(caption)}</figcaption>" if caption else ""
+    return f'<figure><div class="chart">{body}</div>{cap}</figure>'
 
 
-def build_html(result, *, command: str | None = None, created: str | None = None, top: int | None = None) -> str:
-    """The report as one HTML string (self-contained, no external resources)."""
+def plotly_script() -> tuple[str, str]:
+    """The chart library to inline and which bundle it is (``"cartesian"`` or ``"full"``).
+
+    The shipped cartesian bundle is used only when its version equals the one the installed
+    plotly Python package was built for; otherwise (or when the file is missing) the full
+    bundle that package carries.
+    """
+    import plotly.offline
+
+    want = plotly.offline.get_plotlyjs_version()
+    try:
+        with open(VENDORED_PLOTLY, encoding="utf-8") as fh:
+            js = fh.read()
+    except OSError:
+        js = ""
+    m = _VENDORED_VERSION.search(js[:400])
+    if m and m.group(1) == want:
+        return js, "cartesian"
+    return plotly.offline.get_plotlyjs(), "full"
+
+
+#: Words for the metric keys the tables show.
+_TITLES = {"roc_auc": "ROC AUC", "brier": "Brier score", "log_loss": "mean log loss", "f1": "F1",
+           "f1_neg": "F1 of the negative class", "macro_f1": "macro F1", "jaccard": "Jaccard index",
+           "selection_rate": "selection rate (share predicted positive)",
+           "base_rate": "base rate (share actually positive)"}
+
+
+def _title(key: str) -> str:
+    from ..stats.measure import METRICS
+
+    if key in _TITLES:
+        return _TITLES[key]
+    return METRICS[key].title if key in METRICS else key.replace("_", " ")
+
+
+def _support_words(token: str) -> str:
+    from ..engine import SUPPORT_TITLES
+
+    return SUPPORT_TITLES.get(token, token.replace("_", " "))
+
+
+def _gate_html(gate) -> str:
+    if gate is None or not gate.checks:
+        return ("<div class='gate-none'><b>Release gate:</b> not set for this run (the command line's "
+                "<code>--block-on-flag</code> / <code>--block-gap</code>).</div>")
+    words = {"slices": "flagged slices", "fairness": "fairness flags", "gap": f"flagged gaps over {gate.gap}"}
+    what = ", ".join(words[c] for c in gate.checks)
+    if gate.blocked:
+        return (f"<div class='gate-blocked'><b class='flag'>Release gate: BLOCKED</b> (checked: {e(what)})<ul>"
+                + "".join(f"<li>{e(r)}</li>" for r in gate.reasons) + "</ul></div>")
+    return f"<div class='gate-passed'><b>Release gate: passed</b> (checked: {e(what)}).</div>"
+
+
+def build_html(result, *, command: str | None = None, created: str | None = None, top: int | None = None,
+               gate=None) -> str:
+    """The report as one HTML string (self-contained, no external resources).
+
+    ``created`` is the run's timestamp (shared with summary.json); ``gate`` the run's
+    :class:`~audit.faces.gate.GateResult` (default: no gate set).
+    """
+    import plotly
+
+    from . import charts
+    from .gate import evaluate_gate
+
     cfg = result.config
     m = result.metric
     notes = method_notes(result)
     created = created or _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0).isoformat()
+    gate = gate or evaluate_gate(result)
     st = result.status_counts()
     lvl = int(round(cfg.level * 100))
+    neg, pos = (str(c) for c in result.classes)
     parts: list[str] = []
     title = f"Slice audit of {cfg.model_name}" if cfg.model_name else "Slice audit"
+    flagged = result.flagged()
+    top = len(flagged) if top is None else top
+    found = fairness_findings(result)
+    fr = result.fairness
+    src = result.source
+    n_charts = 0
 
-    # 1. identity
+    # 1. opening: what was audited, what needs a decision, the gate, what to do next
+    fair_groups = len(found.drop_duplicates(["attribute", "group"])) if len(found) else 0
+    audited = (f"{e(cfg.model_name or 'A binary classifier')}"
+               + (f" (version {e(cfg.model_version)})" if cfg.model_version else "")
+               + f" on <b>{result.n_rows:,}</b> rows of {e(src.name or 'an in-memory table')}: true label "
+               f"<code>{e(cfg.label)}</code>, positive class <b>{e(pos)}</b>; audited metric <b>{e(m.title)}</b> "
+               f"over {len(result.attributes)} attribute(s) and their pairs ({st.get('tested', 0):,} slices "
+               f"tested, corrected with {e(notes['correction']['title'])} at {cfg.alpha:g}).")
+    if fr is not None:
+        audited += (f" Group fairness on {e(', '.join(a for a in fr.references if ' & ' not in a))}, favourable "
+                    f"outcome: predicted <b>{e(fr.favorable)}</b>.")
+    n_dec = len(flagged) + len(found)
+    decide = (f"<b>{n_dec}</b> finding(s) need a decision: <b class='flag'>{len(flagged)}</b> flagged slice(s)"
+              + (f" and <b class='flag'>{len(found)}</b> fairness finding(s) in {fair_groups} protected group(s)"
+                 f" ({int(found['disadvantaged'].sum()) if len(found) else 0} at a disadvantage, "
+                 f"{int((~found['disadvantaged'].astype(bool)).sum()) if len(found) else 0} in the group's favour)"
+                 if fr is not None else "")
+              + ". Each is listed in section 8 for a decision.")
+    steps = []
+    if n_dec:
+        steps.append("Read each flagged slice in section 5 and each fairness finding in section 6: size, "
+                     "interval and direction.")
+        steps.append("Record a decision for each in section 8 (for example accept with a rationale, remediate, "
+                     "monitor, escalate), with an owner and a date.")
+    else:
+        steps.append("No slice or group was flagged. Absence of a flag is not evidence of equal performance: "
+                     "read section 7 before concluding.")
+    if gate.blocked:
+        steps.append("The release gate is blocked: resolve the findings above, or record the approver's "
+                     "override with its rationale in section 8, before release.")
+    steps.append("After any change to the model or the data, run the audit again from the configuration in "
+                 "section 9 and compare.")
+    steps.append("Have the review signed in section 8.")
+    opening = (f"<div class='caution'><b>Read this first.</b> {e(CAUTION)}</div>"
+               f"<h3>What was audited</h3><p>{audited}</p>"
+               f"<h3>What needs a decision</h3><p>{decide}</p>" + _gate_html(gate)
+               + "<h3>What to do next</h3><ol>" + "".join(f"<li>{x}</li>" for x in steps) + "</ol>"
+               "<p class='muted' id='script-note'>The charts in this document are drawn by a script embedded in "
+               "the file (no network needed). A reader with scripts disabled, or a print made without running "
+               "them, sees no charts: every number a chart shows is also in the tables here and in "
+               "<code>slices.csv</code> / <code>fairness.csv</code>; what is lost is the visual comparison "
+               "and the values shown on hover.</p>")
+    parts.append(_section("opening", opening))
+
+    # 2. identity
     ident = [("Model", e(cfg.model_name or "(not given)")), ("Model version", e(cfg.model_version or "(not given)")),
              ("Intended use", e(cfg.intended_use or "(not given)")),
              ("Tool", f"Fissure {e(result.version)}"), ("Configuration hash (SHA-256)", f"<code>{cfg.digest()}</code>")]
     parts.append(_section("identity", f"<p id='date-line'>Audit date (UTC): {e(created)}</p>"
                           + _table(["item", "value"], ident)))
 
-    # 2. data
-    src = result.source
+    # 3. data
     rows = [("File", e(src.name or "(in-memory table)")), ("SHA-256", f"<code>{e(src.sha256 or '—')}</code>"),
             ("Rows", f"{result.n_rows:,}"), ("Label column", e(cfg.label)),
-            ("Classes", f"negative {e(result.classes[0])!s}, positive <b>{e(result.classes[1])}</b>"
+            ("Classes", f"negative {e(neg)}, positive <b>{e(pos)}</b>"
                         + (" (inferred)" if result.positive_inferred else " (given)")),
             ("Prediction", e(f"column '{cfg.pred}'") if result.prediction_source == "column"
              else e(f"probability column '{cfg.score}' ≥ threshold {cfg.threshold:g}")),
@@ -136,10 +257,13 @@ def build_html(result, *, command: str | None = None, created: str | None = None
                                                             [[e(k), e(v)] for k, v in result.skipped.items()])
     parts.append(_section("data", data_html))
 
-    # 3. method
-    frows = [[e(k), e(v)] for k, v in notes["formulas"].items()]
+    # 4. method
+    frows = [[e(_title(k)), e(v)] for k, v in notes["formulas"].items()]
     meth = (f"<p>Audited metric: <b>{e(m.title)}</b> = {e(m.formula)}; "
-            f"{'higher' if m.higher_is_worse else 'lower'} is worse.</p>"
+            f"{'higher' if m.higher_is_worse else 'lower'} is worse. In the formulas, tp, fp, fn and tn count "
+            f"true positives (actual {e(pos)}, predicted {e(pos)}), false positives (actual {e(neg)}, predicted "
+            f"{e(pos)}), false negatives (actual {e(pos)}, predicted {e(neg)}) and true negatives; n counts "
+            f"rows; p is the predicted probability of {e(pos)} and y is 1 for actual {e(pos)}.</p>"
             + _table(["metric", "formula"], frows)
             + _table(["step", "method"], [
                 ["Intervals for rates", e(f"{notes['interval']['title']} at {lvl}% ({notes['interval']['reference']})")],
@@ -149,31 +273,34 @@ def build_html(result, *, command: str | None = None, created: str | None = None
                 ["Multiple-testing correction", e(f"{notes['correction']['title']}: controls the "
                                                   f"{notes['correction']['controls']} ({notes['correction']['reference']}) "
                                                   f"over the family of {result.family_size} tested slices of orders 1 and 2")],
-                ["Minimum support", e(f"{cfg.min_support} rows, and {cfg.min_metric_support} rows in the metric's "
-                                      f"denominator ({m.denominator}), in the slice and in the rest")],
+                ["Minimum support", e(f"{cfg.min_support} rows, and {cfg.min_metric_support} "
+                                      f"{_support_words(m.denominator)} (the rows the metric is a share of), "
+                                      f"in the slice and in the rest")],
                 ["Flag rule", e(notes["flag_rule"])], ["Ranking", e(notes["ranking"])],
                 ["Undefined values", e(notes["undefined"])], ["Log-loss clipping", e(notes["log_loss_clipping"])],
                 ["ROC AUC", e(notes["roc_auc"])]]))
     parts.append(_section("method", meth))
 
-    # 4. findings
+    # 5. findings
     o = result.overall
     orows = []
     for k in ["accuracy", "error_rate", "precision", "recall", "specificity", "fpr", "fnr", "f1", "log_loss", "brier"]:
         if o.get(k) is None:
             continue
         ci = f"[{_f(o.get(k + '_low'))}, {_f(o.get(k + '_high'))}]" if o.get(k + "_low") is not None else "—"
-        orows.append([e(k), _f(o[k]), ci])
+        orows.append([e(_title(k)), _f(o[k]), ci])
     if o.get("roc_auc") is not None:
-        orows.append(["roc_auc", _f(o["roc_auc"]), "—"])
+        orows.append(["ROC AUC", _f(o["roc_auc"]), "—"])
     find = f"<h3>The whole table ({result.n_rows:,} rows)</h3>" + _table(["metric", "value", f"{lvl}% interval"], orows,
                                                                          num_cols=(1,))
-    find += _figure(charts.confusion(o, result.classes, title="Confusion matrix, whole table"), "fig-confusion")
+    find += _figure(charts.confusion(o, result.classes, title="Confusion matrix, whole table"), "fig-confusion",
+                    f"Rows are the true class, columns the prediction; the diagonal holds correct predictions. "
+                    f"The two other cells are the two kinds of error (actual {neg} predicted {pos}, actual {pos} "
+                    f"predicted {neg}) that the slice tables break down by group.")
+    n_charts += 1
     find += ("<p>" + f"Slices tested: <b>{st.get('tested', 0)}</b> (family size m = {result.family_size}); below "
              f"support: <b>{st.get('below_support', 0)}</b>; without enough rest: {st.get('no_rest', 0)}; undefined: "
              f"{st.get('undefined', 0)}; <span class='flag'>flagged: {st['flagged']}</span>.</p>")
-    flagged = result.flagged()
-    top = len(flagged) if top is None else top
     if len(flagged):
         frows = []
         for _, r in flagged.head(top).iterrows():
@@ -181,53 +308,79 @@ def build_html(result, *, command: str | None = None, created: str | None = None
                           f"[{_f(r['metric_low'])}, {_f(r['metric_high'])}]", _f(r["rest_value"]),
                           f"{_f(r['diff'])} [{_f(r['diff_low'])}, {_f(r['diff_high'])}]", _p(r["q_value"])])
         find += (f"<h3>Flagged slices, worst first ({min(top, len(flagged))} of {len(flagged)} shown)</h3>"
-                 + _table(["rank", "slice", "n", m.name, f"{lvl}% interval", "rest", "slice − rest [interval]",
+                 + _table(["rank", "slice", "n", m.title, f"{lvl}% interval", "rest", "slice − rest [interval]",
                            "adjusted p"], frows, num_cols=(0, 2, 3, 5, 7)))
         if len(flagged) > top:
             find += f"<p class='muted'>All {len(flagged)} flagged slices are listed in slices.csv.</p>"
     else:
         find += "<p>No slice was flagged at the chosen settings.</p>"
     if len(result.ranked()):
-        find += _figure(charts.top_slices(result, k=15), "fig-top")
-        find += _figure(charts.noise_band(result), "fig-noise")
+        find += _figure(charts.top_slices(result, k=15), "fig-top",
+                        f"One line per slice, worst-ranked at the top. The marker is the slice's {m.title} with "
+                        f"its {lvl}% interval; the grey tick is the same metric for all other rows. Orange "
+                        f"diamonds are flagged: the gap to the tick is larger than chance explains after the "
+                        f"correction. A wide interval means few rows: read its far end, not the marker.")
+        find += _figure(charts.noise_band(result), "fig-noise",
+                        f"Each point is a tested slice, placed by its number of rows (log scale) and its "
+                        f"{m.title}. The shaded band is where a slice of that size would land by chance alone if "
+                        f"it were like the whole table; small slices scatter widely without meaning anything. "
+                        f"Points far outside the band on the bad side are the ones to read; the orange ones "
+                        f"survived the correction for {result.family_size} tests.")
+        n_charts += 2
     pair = charts.worst_pair(result)
     if pair:
-        find += _figure(charts.pair_heatmap(result, *pair), "fig-pair")
+        find += _figure(charts.pair_heatmap(result, *pair), "fig-pair",
+                        f"{m.title} for every combination of {pair[0]} and {pair[1]} (the pair holding the "
+                        f"worst-ranked pair slice); ⚑ marks flagged cells, grey cells were too small to test. A "
+                        f"cell that stands out from both its row and its column is a problem of the combination, "
+                        f"not of either attribute alone.")
+        n_charts += 1
     find += ("<p>The full table of every slice, tested or not, with counts, metrics, intervals, differences, "
              "p-values and adjusted p-values is in <code>slices.csv</code> beside this report; "
              "<code>summary.json</code> holds this report's content in machine-readable form.</p>")
     parts.append(_section("findings", find))
 
-    # 5. fairness
-    if result.fairness is not None:
-        parts.append(_section("fairness", _fairness_section(result.fairness, e=e, f=_f, p=_p, figure=_figure)))
+    # 6. fairness
+    if fr is not None:
+        fair_html, k = _fairness_section(result, found, lvl)
+        n_charts += k
+        parts.append(_section("fairness", fair_html))
     else:
         parts.append(_section("fairness", "<p>No protected attributes were named for this audit "
                                           "(<code>--protected</code>), so no group-fairness criteria were checked.</p>"))
 
-    # 6. limits
+    # 7. limits (the caution itself is stated once, in section 1)
     limits = [f"<b>{e(t)}.</b> {e(x)}" for t, x in limitations(result)]
-    parts.append(_section("limits", "<ul>" + "".join(f"<li>{x}</li>" for x in limits) + "</ul>"))
-
-    # 7. cautions
-    parts.append(_section("cautions", f"<div class='caution'>{e(CAUTION)}</div>"
-                          "<p>Protected and sensitive attributes used in this audit should be held and processed "
-                          "under the organisation's data-protection rules.</p>"))
+    limits.append("<b>Sensitive data.</b> Protected and sensitive attributes used in this audit should be held "
+                  "and processed under the organisation's data-protection rules.")
+    parts.append(_section("limits", "<ul>" + "".join(f"<li>{x}</li>" for x in limits) + "</ul>"
+                          "<p class='muted'>How to read a flag: see the caution at the top of section 1.</p>"))
 
     # 8. sign-off
     signs = [[e(role), "<span class='blank'></span>", "<span class='blank'></span>", "<span class='blank'></span>"]
              for role in ("Prepared by", "Independent review by", "Approved by")]
     sign = _table(["role", "name", "signature", "date"], signs)
-    drows = [[str(int(r["rank"])), e(r["slice"]), "<span class='blank'></span>", "<span class='blank'></span>"]
+    drows = [[f"S{int(r['rank'])}", "slice", e(f"{r['slice']}: {m.title} {_f(r['metric_value'])} vs rest "
+                                               f"{_f(r['rest_value'])}, adjusted p {fmt_p(r['q_value'])}"),
+              "<span class='blank'></span>", "<span class='blank'></span>"]
              for _, r in flagged.head(top).iterrows()]
+    for i, (_, r) in enumerate(found.iterrows(), start=1):
+        cls = "flag" if r["disadvantaged"] else "favour"
+        drows.append([f"F{i}", "fairness", f"<span class='{cls}'>{e(finding_text(r))}</span>",
+                      "<span class='blank'></span>", "<span class='blank'></span>"])
+    if gate.blocked:
+        drows.append(["G", "release gate", e("blocked: " + "; ".join(gate.reasons)), "<span class='blank'></span>",
+                      "<span class='blank'></span>"])
     if drows:
-        sign += ("<h3>Decision on each finding</h3><p class='muted'>For example: accept with rationale, remediate, "
-                 "monitor, escalate.</p>" + _table(["rank", "flagged slice", "decision", "owner / due date"], drows))
+        sign += ("<h3>Decision on each finding</h3><p class='muted'>S: flagged slice, by rank (section 5); "
+                 "F: fairness finding (section 6). For example: accept with rationale, remediate, monitor, "
+                 "escalate.</p>" + _table(["#", "kind", "finding", "decision", "owner / due date"], drows))
     parts.append(_section("signoff", sign))
 
     # 9. reproduce
-    env = result.environment
-    env = {**env, "plotly": plotly.__version__}
+    env = {**result.environment, "plotly": plotly.__version__}
+    js, bundle = plotly_script()
+    env["plotly.js (embedded)"] = f"{plotly.offline.get_plotlyjs_version()} ({bundle} bundle)"
     repro = ("<p>Run the same audit again with the configuration below saved as <code>fissure.toml</code> "
              "(written beside this report):</p>"
              f"<pre>fissure audit {e(src.name or 'DATA')} --config fissure.toml --out audit-again</pre>")
@@ -237,12 +390,13 @@ def build_html(result, *, command: str | None = None, created: str | None = None
     repro += "<h3>Software</h3>" + _table(["component", "version"], [[e(k), e(v)] for k, v in env.items()])
     parts.append(_section("reproduce", repro))
 
-    plotly_js = plotly.offline.get_plotlyjs()
     head = (f"<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'><title>{e(title)}</title>"
             f"<meta name='generator' content='Fissure {e(result.version)}'>"
-            f"<style>{CSS}</style><script type='text/javascript'>{plotly_js}</script></head><body>")
+            f"<style>{CSS}</style><script type='text/javascript'>{js}</script></head><body>")
     intro = (f"<h1>{e(title)}</h1><p class='muted'>Prepared by Fissure {e(result.version)}</p>"
-             f"<div class='caution'>{e(CAUTION)}</div>")
+             f"<noscript><div class='caution' id='noscript-note'>Scripts are disabled: the {n_charts} charts of "
+             f"this report are not drawn. Every number they show is in the tables below and in slices.csv"
+             f"{' / fairness.csv' if fr is not None else ''}.</div></noscript>")
     return head + intro + "".join(parts) + "</body></html>\n"
 
 
@@ -288,37 +442,84 @@ def html_to_pdf(html_text: str, *, timeout: float = 120.0) -> tuple[bytes | None
             return fh.read(), None
 
 
-def _fairness_section(fr, *, e, f, p, figure) -> str:
-    parts = [f"<p>Favourable outcome: predicted <b>{e(fr.favorable)}</b>"
-             + (" (the positive prediction)" if fr.favorable_is_positive else "")
-             + f". Reference group per attribute: the one with the highest selection rate unless chosen. Groups "
-               f"under {fr.min_group_share:.0%} of rows, and rows with a missing protected value, are counted but left "
-               f"out of ratios and tests. Differences are tested against the reference group and corrected over "
-               f"{fr.family_size} tests. The four-fifths check (29 CFR 1607.4(D)) is exact: a ratio of exactly 4/5 is "
-               f"not below it. It is a US rule of thumb from employment selection, not a legal test everywhere.</p>"]
+def _fairness_section(result, found, lvl: int) -> tuple[str, int]:
+    """Section 6 and the number of charts it draws."""
+    from . import charts
+
+    fr = result.fairness
+    neg, pos = (str(c) for c in result.classes)
+    fav = str(fr.favorable)
+    unfav = pos if fav == neg else neg
+    parts = [f"<p>Favourable outcome: predicted <b>{e(fav)}</b>"
+             + (" (the positive prediction)" if fr.favorable_is_positive else " (the negative prediction)")
+             + f". The <b>selection rate</b> is the share of a group predicted {e(fav)}; TPR is the share of actual "
+               f"{e(pos)} predicted {e(pos)}, FPR the share of actual {e(neg)} predicted {e(pos)}, PPV the share of "
+               f"predicted {e(pos)} that are actual {e(pos)}. Reference group per attribute: the one with the highest "
+               f"selection rate unless chosen. Groups under {fr.min_group_share:.0%} of rows, and rows with a "
+               f"missing protected value, are counted but left out of ratios and tests. Differences are tested "
+               f"against the reference group and corrected over {fr.family_size} tests. The four-fifths check "
+               f"(29 CFR 1607.4(D)) is exact: a ratio of exactly 4/5 is not below it. It is a US rule of thumb "
+               f"from employment selection, not a legal test everywhere.</p>"
+             f"<p>A group is <b>flagged</b> when any criterion's adjusted p-value is at most {result.config.alpha:g} "
+             f"or it fails the four-fifths check. Each flag says which way it points: a group is <span "
+             f"class='flag'>at a disadvantage</span> when its members get the favourable prediction ({e(fav)}) "
+             f"less often than the reference group's members with the same true outcome (lower selection rate; "
+             + ("lower TPR; lower FPR" if fr.favorable_is_positive else "higher TPR; higher FPR")
+             + "), or when "
+             + (f"its {e(pos)} predictions are held to a higher bar (higher PPV)" if fr.favorable_is_positive
+                else f"its {e(unfav)} predictions are less often borne out (lower PPV)")
+             + ". A flag pointing the other way is marked <span class='favour'>in the group's favour</span>: "
+               "it still shows a difference from the reference group, to the reference group's cost.</p>"]
     if fr.missing:
         parts.append("<p>Rows with a missing protected value: "
                      + "; ".join(f"{e(k)}: {v:,}" for k, v in fr.missing.items()) + ".</p>")
     for note in fr.notes:
         parts.append(f"<p class='muted'>{e(note)}</p>")
-    header = ["attribute", "group", "n", "selection rate", "impact ratio", "below 4/5", "TPR", "FPR", "PPV",
-              "equalized-odds gap", "adjusted p (selection)", "left out"]
+    by_group: dict[tuple[str, str], list[str]] = {}
+    for _, r in found.iterrows():
+        cls = "flag" if r["disadvantaged"] else "favour"
+        by_group.setdefault((r["attribute"], r["group"]), []).append(
+            f"<span class='{cls}'>{e(r['direction'])} — {e(r['reading'])}</span>")
+    header = ["attribute", "group", "n", f"selection rate (predicted {fav})", "impact ratio", "below 4/5", "TPR",
+              "FPR", "PPV", "equalized-odds gap", "adjusted p: selection", "TPR", "FPR", "PPV", "flag and direction"]
     rows = []
     for _, r in fr.groups.iterrows():
         below = "<span class='flag'>yes</span>" if r["below_four_fifths"] else "no"
+        key = (r["attribute"], r["group"])
+        if key in by_group:
+            flag = "<b class='flag'>⚑ flagged</b><br>" + "<br>".join(by_group[key])
+        elif r["is_reference"]:
+            flag = "reference"
+        elif r["excluded"]:
+            flag = "left out: " + e(r["exclusion_reason"])
+        else:
+            flag = "—"
         rows.append([e(r["attribute"]), e(r["group"]) + (" (reference)" if r["is_reference"] else ""),
-                     f"{int(r['n']):,}", f(r["selection_rate"]), f(r["impact_ratio"], 3), below, f(r["tpr"]),
-                     f(r["fpr"]), f(r["ppv"]), f(r["equalized_odds_gap"]), p(r.get("selection_q")),
-                     e(r["exclusion_reason"]) if r["excluded"] else ""])
-    out = ["<table><thead><tr>" + "".join(f"<th>{e(h)}</th>" for h in header) + "</tr></thead><tbody>"]
-    out += ["<tr>" + "".join(f"<td>{c}</td>" for c in row) + "</tr>" for row in rows]
-    out.append("</tbody></table>")
-    parts.append("".join(out))
+                     f"{int(r['n']):,}", _f(r["selection_rate"]), _f(r["impact_ratio"], 3), below, _f(r["tpr"]),
+                     _f(r["fpr"]), _f(r["ppv"]), _f(r["equalized_odds_gap"]), _p(r.get("selection_q")),
+                     _p(r.get("tpr_q")), _p(r.get("fpr_q")), _p(r.get("ppv_q")), flag])
+    parts.append(_table(header, rows, num_cols=(2, 3, 4, 6, 7, 8, 9, 10, 11, 12, 13), cls="wide"))
+    if len(found):
+        parts.append("<h3>Fairness findings</h3><ul>"
+                     + "".join(f"<li class='{'flag' if r['disadvantaged'] else 'favour'}'>{e(finding_text(r))}</li>"
+                               for _, r in found.iterrows()) + "</ul>")
+    else:
+        parts.append("<p>No protected group was flagged at the chosen settings.</p>")
+    n = 0
     for i, attr in enumerate(dict.fromkeys(fr.groups["attribute"])):
         if " & " in attr:
             continue
-        parts.append(figure(charts.selection_rates(fr.groups, attr), f"fig-fair-sel-{i}"))
-        parts.append(figure(charts.error_rate_balance(fr.groups, attr), f"fig-fair-eo-{i}"))
+        parts.append(_figure(charts.selection_rates(fr.groups, attr), f"fig-fair-sel-{i}",
+                             f"Bars: the share of each {attr} group predicted {fav} (the favourable outcome), with "
+                             f"{lvl}% intervals. The dashed line is four-fifths of the reference group's rate; a "
+                             f"bar below it fails the four-fifths check. Overlapping intervals mean the difference "
+                             f"may be chance."))
+        parts.append(_figure(charts.error_rate_balance(fr.groups, attr), f"fig-fair-eo-{i}",
+                             f"Each point is a {attr} group: across, how often actual {neg} are predicted {pos} "
+                             f"(FPR); up, how often actual {pos} are predicted {pos} (TPR), with {lvl}% intervals. "
+                             f"Groups close together are treated alike on both kinds of error (equalized odds); a "
+                             f"group apart along one axis differs on that error."))
+        n += 2
     parts.append("<p>The full table, with intervals, p-values and calibration columns, is in "
                  "<code>fairness.csv</code>.</p>")
-    return "".join(parts)
+    return "".join(parts), n
