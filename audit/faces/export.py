@@ -1,6 +1,11 @@
-"""Step 8: the files an audit leaves behind — ``slices.csv`` and ``summary.json`` — written
-so that nothing is ever half-written: every file is built in memory first, written under a
-temporary name and renamed into place.
+"""Step 8: the files an audit leaves behind — ``slices.csv``, ``summary.json``, ``fairness.csv``,
+``report.html``, ``fissure.toml`` — written so that nothing is ever half-written: every file is
+built in memory first, written under a temporary name and renamed into place.
+
+An output folder holds exactly one run. Each run leaves a small marker, ``.fissure-run``, listing
+the files it wrote; the next run into the same folder removes the files of the previous run that
+it did not write, and a non-empty folder without the marker is refused (it is not Fissure's).
+:func:`save` writes the same files from Python as ``fissure audit`` does from the command line.
 """
 from __future__ import annotations
 
@@ -14,7 +19,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from .prose import CAUTION, limitations, method_notes
+from ..errors import AuditInputError
+from .prose import CAUTION, fairness_findings, limitations, method_notes
 
 _FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
 
@@ -47,8 +53,19 @@ def slices_csv(result) -> bytes:
 
 
 def fairness_csv(result) -> bytes:
-    """``fairness.csv`` as bytes: one row per protected group."""
-    return frame_csv(result.fairness.groups)
+    """``fairness.csv`` as bytes: one row per protected group.
+
+    Beside the engine's columns: ``favorable_outcome`` (the predicted class the selection rate
+    counts) and ``flag_reasons`` (each flagged criterion with its direction, ``; ``-separated).
+    """
+    g = result.fairness.groups.copy()
+    found = fairness_findings(result)
+    reasons = {}
+    for _, r in found.iterrows():
+        reasons.setdefault((r["attribute"], r["group"]), []).append(f"{r['direction']} ({r['reading']})")
+    g.insert(g.columns.get_loc("group") + 1, "favorable_outcome", str(result.fairness.favorable))
+    g["flag_reasons"] = ["; ".join(reasons.get((a, x), [])) for a, x in zip(g["attribute"], g["group"])]
+    return frame_csv(g)
 
 
 def frame_csv(frame: pd.DataFrame) -> bytes:
@@ -66,8 +83,19 @@ def frame_csv(frame: pd.DataFrame) -> bytes:
     return buf.getvalue().encode("utf-8")
 
 
-def summary(result, *, created: str | None = None) -> dict[str, Any]:
-    """The machine-readable summary (schema: ``audit/summary.schema.json``)."""
+def now_utc() -> str:
+    """The run's timestamp (UTC, seconds), shared by every file of one run."""
+    return _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0).isoformat()
+
+
+def summary(result, *, created: str | None = None, gate=None) -> dict[str, Any]:
+    """The machine-readable summary (schema: ``audit/faces/summary.schema.json``).
+
+    ``gate`` is the :class:`~audit.faces.gate.GateResult` of the run (default: no gate set).
+    """
+    from .gate import evaluate_gate
+
+    gate = gate or evaluate_gate(result)
     cfg = result.config
     counts = result.status_counts()
     flagged = result.flagged()
@@ -80,7 +108,7 @@ def summary(result, *, created: str | None = None) -> dict[str, Any]:
     ]
     out: dict[str, Any] = {
         "tool": {"name": "fissure", "version": result.version},
-        "created": created or _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0).isoformat(),
+        "created": created or now_utc(),
         "model": {"name": cfg.model_name, "version": cfg.model_version, "intended_use": cfg.intended_use},
         "input": {"name": result.source.name, "sha256": result.source.sha256, "bytes": result.source.n_bytes,
                   "rows": result.n_rows},
@@ -108,9 +136,18 @@ def summary(result, *, created: str | None = None) -> dict[str, Any]:
         "limitations": [{"title": t, "text": x} for t, x in limitations(result)],
         "cautions": CAUTION,
         "environment": result.environment,
+        "gate": gate.as_dict(),
     }
     if result.fairness is not None:
-        out["fairness"] = result.fairness.to_summary()
+        fair = result.fairness.to_summary()
+        found = fairness_findings(result)
+        fair["findings"] = [
+            {"attribute": r["attribute"], "group": r["group"], "reference": r["reference"],
+             "criterion": r["criterion"], "value": _f(r["value"]), "reference_value": _f(r["reference_value"]),
+             "q_value": _f(r["q_value"]), "higher": bool(r["higher"]), "disadvantaged": bool(r["disadvantaged"]),
+             "direction": r["direction"], "meaning": r["meaning"]}
+            for _, r in found.iterrows()]
+        out["fairness"] = fair
     return out
 
 
@@ -148,3 +185,140 @@ def write_files(out_dir: str, files: dict[str, bytes]) -> list[str]:
     for tmp, final in temps:
         os.replace(tmp, final)
     return [final for _, final in temps]
+
+
+#: The file that marks a folder as holding one Fissure run, and lists that run's files.
+MARKER = ".fissure-run"
+
+
+def check_output_folder(out_dir: str) -> None:
+    """Refuse an output folder Fissure may not write into (called before any computing).
+
+    Accepted: a folder that does not exist yet, an empty folder, or a folder holding a previous
+    Fissure run (it has the ``.fissure-run`` marker).
+    """
+    if not os.path.exists(out_dir):
+        return
+    if not os.path.isdir(out_dir):
+        raise AuditInputError(f"output folder '{out_dir}' is a file; give a folder with --out")
+    entries = os.listdir(out_dir)
+    if entries and MARKER not in entries:
+        raise AuditInputError(f"output folder '{out_dir}' is not empty and holds no Fissure run "
+                              f"(no {MARKER} file); give a new or empty folder with --out")
+
+
+def _previous_files(out_dir: str) -> list[str]:
+    try:
+        with open(os.path.join(out_dir, MARKER), encoding="utf-8") as fh:
+            listed = json.load(fh).get("files", [])
+    except (OSError, ValueError, AttributeError):
+        return []
+    # Only plain names inside the folder: a marker never makes us delete elsewhere.
+    return [f for f in listed if isinstance(f, str) and f and os.path.basename(f) == f and f not in (".", "..")]
+
+
+def write_run(out_dir: str, files: dict[str, bytes], *, created: str | None = None) -> list[str]:
+    """Write one run's files into ``out_dir`` and leave exactly that run there.
+
+    Every file goes through :func:`write_files` (temporary name, then rename); the marker
+    ``.fissure-run`` is written last, then files of the previous run that this run did not
+    write are removed. Returns the paths written (the marker not included).
+    """
+    check_output_folder(out_dir)
+    previous = _previous_files(out_dir)
+    marker = {"tool": "fissure", "created": created or now_utc(), "files": sorted(files)}
+    written = write_files(out_dir, files)
+    write_files(out_dir, {MARKER: (json.dumps(marker, indent=1) + "\n").encode("utf-8")})
+    for name in previous:
+        if name not in files:
+            path = os.path.join(out_dir, name)
+            if os.path.isfile(path):
+                os.unlink(path)
+    return written
+
+
+def build_files(result, *, report: bool = True, pdf: bool = False, command: str | None = None,
+                created: str | None = None, gate=None) -> dict[str, bytes]:
+    """Every file of a run, in memory: name → bytes.
+
+    Raises :class:`~audit.errors.AuditInputError` when ``pdf`` is asked for and Chromium cannot
+    print it (nothing is written then).
+    """
+    from .gate import evaluate_gate
+
+    created = created or now_utc()
+    gate = gate or evaluate_gate(result)
+    files = {"slices.csv": slices_csv(result), "summary.json": summary_json(result, created=created, gate=gate)}
+    if result.fairness is not None:
+        files["fairness.csv"] = fairness_csv(result)
+    if report:
+        from .report import build_html, html_to_pdf
+
+        html = build_html(result, command=command, created=created, gate=gate)
+        files["report.html"] = html.encode("utf-8")
+        files["fissure.toml"] = result.config.to_toml().encode("utf-8")
+        if pdf:
+            data, why = html_to_pdf(html)
+            if data is None:
+                raise AuditInputError(why)
+            files["report.pdf"] = data
+    elif pdf:
+        raise AuditInputError("a PDF needs the report; drop --no-report (report=False)")
+    return files
+
+
+def save(result, folder: str, *, report: bool = True, pdf: bool = False, gate=None,
+         command: str | None = None) -> list[str]:
+    """Write an audit's files into ``folder``, the same files ``fissure audit`` writes.
+
+    Parameters
+    ----------
+    result : AuditResult
+        What :func:`audit.run` returned.
+    folder : str
+        Output folder: new, empty, or holding a previous Fissure run (whose files this run
+        replaces; files of that run not written again are removed).
+    report : bool
+        Also write ``report.html`` and ``fissure.toml`` (default True).
+    pdf : bool
+        Also write ``report.pdf`` through headless Chromium (Debian: ``apt-get install chromium``).
+    gate : GateResult, optional
+        From :func:`audit.faces.gate.evaluate_gate`; recorded in ``summary.json`` and the report.
+    command : str, optional
+        The command line to quote in the report's reproduction section.
+
+    Returns
+    -------
+    list of str
+        Paths of the files written.
+
+    Raises
+    ------
+    AuditInputError
+        The folder is not empty and holds no Fissure run, or ``pdf`` without a usable Chromium;
+        nothing is written then.
+
+    Examples
+    --------
+    >>> import pandas as pd, tempfile, os, audit
+    >>> from audit.faces.export import save
+    >>> df = pd.DataFrame({"y": [0, 1] * 50, "p": [0.2, 0.7] * 45 + [0.9, 0.1] * 5,
+    ...                    "region": ["north"] * 60 + ["south"] * 40})
+    >>> out = os.path.join(tempfile.mkdtemp(), "audit-out")
+    >>> paths = save(audit.run(df, label="y", score="p"), out, report=False)
+    >>> sorted(os.listdir(out))
+    ['.fissure-run', 'slices.csv', 'summary.json']
+    """
+    check_output_folder(folder)
+    if pdf and report:
+        from .report import find_chromium
+
+        if find_chromium() is None:
+            raise AuditInputError(NO_CHROMIUM)
+    created = now_utc()
+    files = build_files(result, report=report, pdf=pdf, command=command, created=created, gate=gate)
+    return write_run(folder, files, created=created)
+
+
+NO_CHROMIUM = ("--pdf needs a Chromium browser and none was found (Debian: apt-get install chromium; "
+               "or set FISSURE_CHROMIUM to its path)")
