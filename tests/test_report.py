@@ -1,4 +1,6 @@
-"""The governance report: structure, self-containment, reproduction, hostile strings, schema, gate, PDF."""
+"""The governance report: structure, opening, fairness flags, self-containment, reproduction, hostile
+strings, schema, gate, PDF. One real process runs the whole chain (``demo_run``); the rest call the
+command line in-process."""
 import html
 import json
 import os
@@ -13,14 +15,27 @@ import pandas as pd
 import pytest
 
 from conftest import ROOT, random_table
+from audit.faces.cli import main as cli_main
 from audit.faces.report import SECTIONS
+from test_gate import fair_table
 
 HOSTILE = "<img src=x onerror=\"window.__pwned=1\">"
 
 
 def fissure(*args, cwd):
+    """A real process: used once, for the whole chain."""
     return subprocess.run([sys.executable, "-m", "audit", *args], capture_output=True, text=True, cwd=cwd,
                           env={**os.environ, "PYTHONPATH": ROOT})
+
+
+def inproc(*args, cwd):
+    """``fissure ARGS`` in this process, from folder ``cwd``; returns the exit code."""
+    old = os.getcwd()
+    os.chdir(cwd)
+    try:
+        return cli_main([str(a) for a in args])
+    finally:
+        os.chdir(old)
 
 
 class Collect(HTMLParser):
@@ -55,8 +70,9 @@ def demo_run(tmp_path_factory, demo_csv):
     r = fissure("audit", "predictions.csv", "--label", "delinquent", "--score", "p_delinquent", "--out", "out",
                 "--model-name", "Personal-loan delinquency", "--model-version", "3.2",
                 "--intended-use", "credit decisions", "--protected", "sex,age_band", "--favorable", "0",
-                "--quiet", cwd=work)
-    assert r.returncode == 0, r.stderr
+                "--quiet", "--block-on-flag", cwd=work)
+    assert r.returncode == 1, r.stderr  # the demo's planted slices stop the release gate
+    assert r.stderr.startswith("fissure: release gate: ") and "slice(s) flagged; worst: " in r.stderr
     return work
 
 
@@ -99,8 +115,7 @@ def test_embedded_toml_reproduces_slices_csv(demo_run):
     p = parse(demo_run / "out" / "report.html")
     toml = html.unescape(p.pre["config-toml"])
     (demo_run / "again.toml").write_text(toml)
-    r = fissure("audit", "predictions.csv", "--config", "again.toml", "--out", "again", "--quiet", cwd=demo_run)
-    assert r.returncode == 0, r.stderr
+    assert inproc("audit", "predictions.csv", "--config", "again.toml", "--out", "again", "--quiet", cwd=demo_run) == 0
     assert (demo_run / "again" / "slices.csv").read_bytes() == (demo_run / "out" / "slices.csv").read_bytes()
     assert (demo_run / "again" / "fairness.csv").read_bytes() == (demo_run / "out" / "fairness.csv").read_bytes()
 
@@ -109,8 +124,8 @@ def test_deterministic_apart_from_the_date_line(demo_run, tmp_path):
     shutil.copy(demo_run / "predictions.csv", tmp_path / "predictions.csv")
     args = ["audit", "predictions.csv", "--label", "delinquent", "--score", "p_delinquent", "--out", "out",
             "--model-name", "Personal-loan delinquency", "--model-version", "3.2", "--intended-use",
-            "credit decisions", "--protected", "sex,age_band", "--favorable", "0", "--quiet"]
-    assert fissure(*args, cwd=tmp_path).returncode == 0
+            "credit decisions", "--protected", "sex,age_band", "--favorable", "0", "--quiet", "--block-on-flag"]
+    assert inproc(*args, cwd=tmp_path) == 1
     a = (demo_run / "out" / "report.html").read_text().splitlines()
     b = (tmp_path / "out" / "report.html").read_text().splitlines()
     assert (demo_run / "out" / "slices.csv").read_bytes() == (tmp_path / "out" / "slices.csv").read_bytes()
@@ -118,16 +133,106 @@ def test_deterministic_apart_from_the_date_line(demo_run, tmp_path):
     assert strip(a) == strip(b)
 
 
+def _schema():
+    return json.load(open(os.path.join(ROOT, "audit", "faces", "summary.schema.json")))
+
+
 def test_summary_validates_against_shipped_schema(demo_run):
     jsonschema = pytest.importorskip("jsonschema")
-    schema = json.load(open(os.path.join(ROOT, "audit", "faces", "summary.schema.json")))
+    schema = _schema()
     summary = json.load(open(demo_run / "out" / "summary.json"))
     jsonschema.validate(summary, schema)
     assert summary["model"] == {"name": "Personal-loan delinquency", "version": "3.2", "intended_use": "credit decisions"}
     assert summary["fairness"]["favorable_outcome"] == "0"
-    bad = dict(summary, input={**summary["input"], "rows": 0})
-    with pytest.raises(jsonschema.ValidationError):
-        jsonschema.validate(bad, schema)
+    assert summary["gate"]["blocked"] is True and summary["gate"]["checks"] == ["slices", "fairness"]
+    assert summary["gate"]["reasons"][0].startswith(f"{summary['slices']['flagged']} slice(s) flagged; worst: ")
+    for bad in (dict(summary, input={**summary["input"], "rows": 0}),
+                dict(summary, gate={"blocked": "yes", "reasons": [], "checks": [], "gap": None}),
+                {k: v for k, v in summary.items() if k != "gate"}):
+        with pytest.raises(jsonschema.ValidationError):
+            jsonschema.validate(bad, schema)
+
+
+def test_opening_says_what_was_audited_what_to_decide_and_the_gate(demo_run):
+    p = parse(demo_run / "out" / "report.html")
+    raw = (demo_run / "out" / "report.html").read_text()
+    opening = raw[raw.index("<section id='opening'>"):raw.index("<section id='identity'>")]
+    text = re.sub(r"<[^>]+>", "", opening)
+    n = json.load(open(demo_run / "out" / "summary.json"))["slices"]["flagged"]
+    assert "Personal-loan delinquency (version 3.2) on 20,000 rows of predictions.csv" in text
+    assert f"{n} finding(s) need a decision: {n} flagged slice(s) and 0 fairness finding(s)" in text
+    assert "Release gate: BLOCKED" in text and "What to do next" in text
+    assert "favourable outcome: predicted 0" in text
+    # the caution: once, at the top, prominent
+    assert raw.count("not a finding of discrimination") == 1
+    assert raw.index("not a finding of discrimination") < raw.index("<section id='identity'>")
+    assert "scripts disabled" in text and "<noscript>" in raw
+    assert [i for i in p.ids if i == "opening"]
+
+
+def test_method_table_in_words_and_every_chart_captioned(demo_run):
+    raw = (demo_run / "out" / "report.html").read_text()
+    method = raw[raw.index("<section id='method'>"):raw.index("<section id='findings'>")]
+    assert "tp_fp_fn" not in method and "actual_pos" not in method
+    n_charts = raw.count("Plotly.newPlot")
+    assert n_charts >= 8 and raw.count("<figcaption><b>How to read it.</b>") == n_charts
+    assert f"the {n_charts} charts of this report are not drawn" in raw
+
+
+def test_smaller_chart_bundle_of_the_same_version(demo_run, monkeypatch):
+    import plotly.offline
+
+    from audit.faces import report
+
+    js, which = report.plotly_script()
+    assert which == "cartesian" and plotly.offline.get_plotlyjs_version() in js[:200]
+    assert "Licensed under the MIT license" in js[:300]
+    size = (demo_run / "out" / "report.html").stat().st_size
+    assert size < 2_500_000, size  # the full bundle alone is about 4.8 MB (plotly 7.1.0)
+    monkeypatch.setattr(report, "VENDORED_PLOTLY", "/nonexistent/plotly.js")
+    js, which = report.plotly_script()
+    assert which == "full" and js == plotly.offline.get_plotlyjs()
+
+
+@pytest.fixture(scope="module")
+def fair_run(tmp_path_factory):
+    work = tmp_path_factory.mktemp("fair")
+    fair_table().to_csv(work / "fair.csv", index=False)
+    code = inproc("audit", "fair.csv", "--label", "y", "--pred", "yhat", "--protected", "group", "--favorable", "1",
+                  "--max-order", "1", "--out", "out", "--quiet", "--block-on-flag", "fairness", cwd=work)
+    assert code == 1
+    return work
+
+
+def _words(fragment: str) -> str:
+    return re.sub(r"\s+", " ", html.unescape(re.sub(r"<[^>]+>", " ", fragment)))
+
+
+def test_fairness_flags_in_table_findings_and_signoff(fair_run):
+    raw = (fair_run / "out" / "report.html").read_text()
+    fair = raw[raw.index("<section id='fairness'>"):raw.index("<section id='limits'>")]
+    text = _words(fair)
+    for h in ("adjusted p: selection", "flag and direction", "selection rate (predicted 1)"):
+        assert h in text
+    assert "⚑ flagged" in text
+    assert "lower selection rate than 'a' — at a disadvantage" in text
+    assert "higher false-positive rate than 'a' — in the group's favour" in text
+    assert "higher positive predictive value than 'a' — at a disadvantage" in text  # b: a higher bar
+    sign = raw[raw.index("<section id='signoff'>"):raw.index("<section id='reproduce'>")]
+    stext = _words(sign)
+    assert "F1" in stext and "fairness" in stext
+    assert "group=b: lower selection rate than 'a'" in stext and "group=c: higher false-positive rate" in stext
+    assert "release gate" in stext
+    opening = _words(raw[raw.index("<body>"):raw.index("<section id='identity'>")])
+    assert "Release gate: BLOCKED" in opening and "fairness flags" in opening
+    summary = json.load(open(fair_run / "out" / "summary.json"))
+    jsonschema = pytest.importorskip("jsonschema")
+    jsonschema.validate(summary, _schema())
+    n = len(summary["fairness"]["findings"])
+    assert f"{n} fairness finding(s) in 2 protected group(s)" in opening
+    fc = pd.read_csv(fair_run / "out" / "fairness.csv", dtype=str, keep_default_na=False)
+    assert set(fc["favorable_outcome"]) == {"1"}
+    assert "lower selection rate than 'a' (at a disadvantage)" in fc.loc[fc["group"] == "b", "flag_reasons"].iloc[0]
 
 
 @pytest.fixture(scope="module")
@@ -137,9 +242,8 @@ def hostile_run(tmp_path_factory):
     df["region"] = df["region"].replace({"r2": HOSTILE, "r1": "=HYPERLINK(\"http://x\")", "r3": "@SUM(1)"})
     df = df.rename(columns={"plan": "+plan<script>"})
     df.to_csv(work / "t.csv", index=False)
-    r = fissure("audit", "t.csv", "--label", "y", "--score", "p", "--out", "out", "--quiet",
-                "--model-name", "<script>window.__pwned=2</script>", cwd=work)
-    assert r.returncode == 0, r.stderr
+    assert inproc("audit", "t.csv", "--label", "y", "--score", "p", "--out", "out", "--quiet",
+                  "--model-name", "<script>window.__pwned=2</script>", cwd=work) == 0
     return work
 
 
@@ -169,19 +273,18 @@ def test_csv_neutralises_formulas_but_keeps_negative_numbers(hostile_run):
 
 def test_release_gate_exit_codes(demo_run, tmp_path):
     base = ["audit", "predictions.csv", "--label", "delinquent", "--score", "p_delinquent", "--quiet", "--no-report"]
-    r = fissure(*base, "--out", str(tmp_path / "a"), "--block-on-flag", cwd=demo_run)
-    assert r.returncode == 1 and "release gate" in r.stderr
-    r = fissure(*base, "--out", str(tmp_path / "b"), "--block-gap", "0.5", cwd=demo_run)
-    assert r.returncode == 0
-    r = fissure(*base, "--out", str(tmp_path / "c"), "--block-gap", "0.1", cwd=demo_run)
-    assert r.returncode == 1 and "differs from the rest by" in r.stderr
+    assert inproc(*base, "--out", tmp_path / "a", "--block-on-flag", cwd=demo_run) == 1
+    assert inproc(*base, "--out", tmp_path / "a2", "--block-on-flag", "slices", cwd=demo_run) == 1
+    assert inproc(*base, "--out", tmp_path / "b", "--block-gap", "0.5", cwd=demo_run) == 0
+    assert inproc(*base, "--out", tmp_path / "c", "--block-gap", "0.1", cwd=demo_run) == 1
+    gate = json.load(open(tmp_path / "c" / "summary.json"))["gate"]
+    assert gate["checks"] == ["gap"] and "differs from the rest by" in gate["reasons"][0]
     null = random_table(n=1500, seed=30)
     null.to_csv(tmp_path / "null.csv", index=False)
-    r = fissure("audit", str(tmp_path / "null.csv"), "--label", "y", "--score", "p", "--quiet", "--no-report",
-                "--out", str(tmp_path / "d"), "--block-on-flag", cwd=demo_run)
-    assert r.returncode == 0, r.stderr
-    r = fissure("audit", "missing.csv", "--label", "y", "--out", str(tmp_path / "e"), "--block-on-flag", cwd=demo_run)
-    assert r.returncode == 2
+    assert inproc("audit", tmp_path / "null.csv", "--label", "y", "--score", "p", "--quiet", "--no-report",
+                  "--out", tmp_path / "d", "--block-on-flag", cwd=demo_run) == 0
+    assert inproc("audit", "missing.csv", "--label", "y", "--out", tmp_path / "e", "--block-on-flag",
+                  cwd=demo_run) == 2
 
 
 @pytest.mark.skipif(shutil.which("chromium") is None or shutil.which("pdftoppm") is None,
@@ -189,9 +292,8 @@ def test_release_gate_exit_codes(demo_run, tmp_path):
 def test_pdf_pages_are_not_blank(demo_run, tmp_path):
     from PIL import Image
 
-    r = fissure("audit", "predictions.csv", "--label", "delinquent", "--score", "p_delinquent", "--out",
-                str(tmp_path / "pdf"), "--quiet", "--pdf", cwd=demo_run)
-    assert r.returncode == 0, r.stderr
+    assert inproc("audit", "predictions.csv", "--label", "delinquent", "--score", "p_delinquent", "--out",
+                  tmp_path / "pdf", "--quiet", "--pdf", cwd=demo_run) == 0
     pdf = tmp_path / "pdf" / "report.pdf"
     assert pdf.read_bytes()[:5] == b"%PDF-"
     subprocess.run(["pdftoppm", "-png", "-r", "40", "-f", "1", "-l", "3", str(pdf), str(tmp_path / "pg")], check=True)
@@ -200,13 +302,3 @@ def test_pdf_pages_are_not_blank(demo_run, tmp_path):
     for page in pages:
         px = np.asarray(Image.open(page).convert("L"), dtype=float)
         assert px.std() > 5 and (px < 128).mean() > 0.002, page
-
-
-def test_missing_chromium_still_writes_html(demo_run, tmp_path):
-    r = subprocess.run([sys.executable, "-m", "audit", "audit", "predictions.csv", "--label", "delinquent", "--score",
-                        "p_delinquent", "--out", str(tmp_path / "np"), "--quiet", "--pdf", "--max-order", "1"],
-                       capture_output=True, text=True, cwd=demo_run,
-                       env={**os.environ, "PYTHONPATH": ROOT, "PATH": "/nonexistent", "FISSURE_CHROMIUM": "none"})
-    assert r.returncode == 0, r.stderr
-    assert (tmp_path / "np" / "report.html").exists() and not (tmp_path / "np" / "report.pdf").exists()
-    assert r.stderr.strip().count("\n") == 0 and "PDF not written" in r.stderr

@@ -7,6 +7,7 @@ option, exit code 1 means the gate stopped the release.
 from __future__ import annotations
 
 import argparse
+import os
 import shlex
 import sys
 from dataclasses import fields
@@ -18,6 +19,7 @@ from ..stats.correct import CORRECTIONS
 from ..errors import AuditInputError
 from ..stats.intervals import INTERVALS
 from ..stats.measure import METRICS
+from .gate import GATE_SCOPES
 
 EXIT_OK, EXIT_GATE, EXIT_INPUT = 0, 1, 2
 
@@ -84,7 +86,8 @@ def build_parser() -> argparse.ArgumentParser:
                    help="highest slice order with ROC AUC (1; -1 for none)")
     f = a.add_argument_group("fairness")
     f.add_argument("--protected", type=_csv_list, help="comma-separated protected attributes")
-    f.add_argument("--favorable", help="the predicted class that is favourable to the person (default: positive)")
+    f.add_argument("--favorable", help="the predicted class that is favourable to the person "
+                                       "(required with --protected, e.g. 0 for a delinquency model)")
     f.add_argument("--reference", type=_pair, action="append", metavar="ATTR=GROUP",
                    help="reference group for one protected attribute (default: highest selection rate)")
     f.add_argument("--min-group-share", type=float, help="groups below this share are left out of ratios (0.02)")
@@ -93,14 +96,18 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("--model-version", help="model version for the report")
     r.add_argument("--intended-use", help="intended use of the model, for the report")
     r.add_argument("--no-report", action="store_true", help="write slices.csv and summary.json only")
-    r.add_argument("--pdf", action="store_true", help="also write report.pdf (needs Debian's chromium)")
+    r.add_argument("--pdf", action="store_true",
+                   help="also write report.pdf (needs Chromium: Debian's chromium, or FISSURE_CHROMIUM=PATH)")
     o = a.add_argument_group("output")
     o.add_argument("--config", help="TOML settings file (command-line options override it)")
-    o.add_argument("--out", default="fissure-out", help="output folder (fissure-out)")
+    o.add_argument("--out", default="fissure-out",
+                   help="output folder (fissure-out): new, empty, or holding a previous Fissure run, whose files "
+                        "this run replaces")
     o.add_argument("--top", type=int, default=10, help="ranked slices shown in the terminal (10)")
     o.add_argument("--quiet", action="store_true", help="no terminal summary")
-    o.add_argument("--block-on-flag", action="store_true",
-                   help="release gate: exit 1 when any slice is flagged")
+    o.add_argument("--block-on-flag", nargs="?", const="both", choices=GATE_SCOPES, metavar="slices|fairness|both",
+                   help="release gate: exit 1 when any slice is flagged (slices), any protected group is flagged "
+                        "(fairness), or either (both; the plain option)")
     o.add_argument("--block-gap", type=float, metavar="GAP",
                    help="release gate: exit 1 when a flagged slice is worse than the rest by more than GAP "
                         "(in the metric's units)")
@@ -147,95 +154,58 @@ class _Bar:
             self.bar.close()
 
 
-def _fmt(x, digits=4) -> str:
-    try:
-        xf = float(x)
-    except (TypeError, ValueError):
-        return str(x)
-    return "—" if xf != xf else f"{xf:.{digits}f}"
-
-
-def terminal_summary(result, top: int) -> str:
-    m = result.metric
-    st = result.status_counts()
-    o = result.overall
-    lines = [
-        f"fissure {result.version}: {result.n_rows} rows, positive class '{result.classes[1]}'"
-        + (" (inferred)" if result.positive_inferred else ""),
-        f"overall {m.name} {_fmt(o.get(m.name))}  accuracy {_fmt(o['accuracy'])}  recall {_fmt(o['recall'])}  "
-        f"precision {_fmt(o['precision'])}  F1 {_fmt(o['f1'])}"
-        + (f"  log loss {_fmt(o['log_loss'])}" if o.get("log_loss") is not None else ""),
-        f"slices: {st.get('tested', 0)} tested (m = {result.family_size}), {st.get('below_support', 0)} below support, "
-        f"{st['flagged']} flagged at {result.config.correction} {result.config.alpha:g}",
-    ]
-    if result.skipped:
-        lines.append("skipped: " + "; ".join(f"{k} ({v})" for k, v in result.skipped.items()))
-    ranked = result.ranked().head(top)
-    if len(ranked):
-        lines.append(f"worst slices by {m.name} (slice − rest, {int(result.config.level * 100)}% interval):")
-        w = min(60, max(len(s) for s in ranked["slice"]))
-        for _, r in ranked.iterrows():
-            flag = "FLAG" if r["flagged"] else "    "
-            name = r["slice"] if len(r["slice"]) <= w else r["slice"][: w - 1] + "…"
-            lines.append(f"  {int(r['rank']):>3} {flag} {name:<{w}} n={int(r['n']):<7} {_fmt(r['metric_value'])} "
-                         f"diff {_fmt(r['diff'], 3):>7} [{_fmt(r['diff_low'], 3)}, {_fmt(r['diff_high'], 3)}] "
-                         f"q={r['q_value']:.2g}")
-    lines.append("Flags are statistical signals to investigate, not findings of discrimination or legal conclusions.")
-    return "\n".join(lines)
-
-
-def gate(result, *, on_flag: bool, gap: float | None) -> str | None:
-    """Reason the release gate stops, or ``None``."""
-    flagged = result.flagged()
-    if on_flag and len(flagged):
-        return f"{len(flagged)} slice(s) flagged; worst: {flagged.iloc[0]['slice']}"
-    if gap is not None and len(flagged):
-        size = flagged["diff"].abs()
-        over = flagged[size > gap]
-        if len(over):
-            r = over.iloc[0]
-            return f"flagged slice '{r['slice']}' differs from the rest by {abs(r['diff']):.4g} > {gap:g}"
-    return None
-
-
 def audit_command(args: argparse.Namespace, argv: Sequence[str]) -> int:
     from ..engine import run
-    from .export import fairness_csv, slices_csv, summary_json, write_files
+    from .export import NO_CHROMIUM, build_files, check_output_folder, now_utc, write_run
+    from .gate import check_gate_settings, evaluate_gate
+    from .prose import terminal_summary
     from ..core.read import read_table
 
+    # Everything a user can get wrong is checked before any computing.
     settings = settings_from(args)
+    if settings.get("protected") and settings.get("favorable") is None:
+        raise AuditInputError("with --protected, say which prediction is favourable to the person: "
+                              "--favorable VALUE (e.g. --favorable 0 for a delinquency model)")
+    check_gate_settings(args.block_on_flag, args.block_gap, has_protected=bool(settings.get("protected")))
+    check_output_folder(args.out)
+    if args.pdf:
+        if args.no_report:
+            raise AuditInputError("--pdf needs the report; drop --no-report")
+        from .report import find_chromium
+
+        if find_chromium() is None:
+            raise AuditInputError(NO_CHROMIUM)
+
     bar = _Bar(not args.quiet)
     try:
         df, source = read_table(args.data)
         result = run(df, source=source, progress=bar, **settings)
     finally:
         bar.close()
-    files = {"slices.csv": slices_csv(result), "summary.json": summary_json(result)}
-    if result.fairness is not None:
-        files["fairness.csv"] = fairness_csv(result)
+    created = now_utc()  # one timestamp for every file of the run
+    gate = evaluate_gate(result, on_flag=args.block_on_flag, gap=args.block_gap)
     command = "fissure " + " ".join(shlex.quote(a) for a in argv)
-    pdf_note = None
-    if not args.no_report:
-        from .report import build_html, html_to_pdf
-
-        html = build_html(result, command=command)
-        files["report.html"] = html.encode("utf-8")
-        files["fissure.toml"] = result.config.to_toml().encode("utf-8")
-        if args.pdf:
-            pdf, pdf_note = html_to_pdf(html)
-            if pdf is not None:
-                files["report.pdf"] = pdf
-    written = write_files(args.out, files)
+    files = build_files(result, report=not args.no_report, pdf=args.pdf, command=command, created=created,
+                        gate=gate)
+    written = write_run(args.out, files, created=created)
     if not args.quiet:
-        print(terminal_summary(result, args.top))
-        print("wrote " + ", ".join(written))
-    if pdf_note:
-        print(f"fissure: {pdf_note}", file=sys.stderr)
-    reason = gate(result, on_flag=args.block_on_flag, gap=args.block_gap)
-    if reason:
-        print(f"fissure: release gate: {reason}", file=sys.stderr)
+        _print(terminal_summary(result, args.top, gate=gate))
+        _print("wrote " + ", ".join(written))
+    if gate.blocked:
+        print("fissure: release gate: " + "; ".join(gate.reasons), file=sys.stderr)
         return EXIT_GATE
     return EXIT_OK
+
+
+def _print(text: str) -> None:
+    """Print to stdout; a reader that stops early (``| head``) ends the output quietly."""
+    try:
+        print(text, flush=True)
+    except BrokenPipeError:
+        # Point stdout at /dev/null so the interpreter's final flush does not fail again.
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        os.close(devnull)
 
 
 def main(argv: Sequence[str] | None = None) -> int:
