@@ -49,7 +49,7 @@ import json, sys, time
 import numpy as np
 mode, rows = sys.argv[1], int(sys.argv[2])
 rng = np.random.default_rng(0)
-cards = [2, 3, 5, 7, 12, 40]
+cards = [2, 3, 4, 5, 6, 7, 8, 10, 12, 3, 4, 50]  # 12 attributes: 79 families, large enough for the kernels
 out = {}
 if mode == "tally":
     t0 = time.perf_counter()
@@ -62,8 +62,11 @@ if mode == "tally":
     fams = plan_families(len(cards), 2)
     for key in ("first_s", "second_s"):
         t0 = time.perf_counter()
-        ll, br = row_losses(y, p)
-        tally(codes, cards, cell, ll, br, families=fams)
+        try:
+            ll, br = row_losses(y, p, compiled=True)
+        except TypeError:  # before the size switch: compiled above 100,000 rows
+            ll, br = row_losses(y, p)
+        tally(codes, cards, cell, ll, br, families=fams, kernel="compiled")
         out[key] = time.perf_counter() - t0
 else:
     import pandas as pd
@@ -78,6 +81,7 @@ else:
         t0 = time.perf_counter()
         audit.run(df, label="y", score="p")
         out[key] = time.perf_counter() - t0
+out["numba"] = "numba" in sys.modules
 print(json.dumps(out))
 """
 
@@ -164,6 +168,8 @@ def numba_cost(rounds: int, rows: int, work: str) -> None:
             print(f"    {kind}: first call best {min(first):.3f} s, median {statistics.median(first):.3f} s; "
                   f"second call median {statistics.median(second):.3f} s "
                   f"(import {statistics.median(d['import_s'] for d in res[kind]):.3f} s)")
+        if not all(d.get("numba", True) for d in res["cold"] + res["warm"]):
+            print("    (numba was not loaded: this run used the numpy kernels)")
         cold = statistics.median(d["first_s"] - d["second_s"] for d in res["cold"])
         warm = statistics.median(d["first_s"] - d["second_s"] for d in res["warm"])
         print(f"    first-call overhead (first - second): cold {cold:.3f} s, warm {warm:.3f} s")
