@@ -29,22 +29,24 @@ def test_compiled_equals_numpy(rows):
     np.testing.assert_allclose(a.sums, b.sums, rtol=1e-11, atol=1e-9)
 
 
-def test_chunks_add_up(rows):
+@pytest.mark.parametrize("kernel", ["compiled", "numpy"])
+def test_chunks_add_up(rows, kernel):
     codes, cards, cell, ll, br, *_ = rows
     fams = plan_families(len(cards), 2)
-    whole = tally(codes, cards, cell, ll, br, families=fams)
+    whole = tally(codes, cards, cell, ll, br, families=fams, kernel=kernel)
     cut = 7_919
-    first = tally([c[:cut] for c in codes], cards, cell[:cut], ll[:cut], br[:cut], families=fams)
-    second = tally([c[cut:] for c in codes], cards, cell[cut:], ll[cut:], br[cut:], families=fams)
+    first = tally([c[:cut] for c in codes], cards, cell[:cut], ll[:cut], br[:cut], families=fams, kernel=kernel)
+    second = tally([c[cut:] for c in codes], cards, cell[cut:], ll[cut:], br[cut:], families=fams, kernel=kernel)
     both = first + second
     assert np.array_equal(both.counts, whole.counts)
     np.testing.assert_allclose(both.sums, whole.sums, rtol=1e-11)
 
 
-def test_counts_match_sklearn_confusion_matrix(rows):
+@pytest.mark.parametrize("kernel", ["compiled", "numpy"])
+def test_counts_match_sklearn_confusion_matrix(rows, kernel):
     codes, cards, cell, ll, br, y, p = rows
     fams = plan_families(len(cards), 2)
-    t = tally(codes, cards, cell, ll, br, families=fams)
+    t = tally(codes, cards, cell, ll, br, families=fams, kernel=kernel)
     yhat = (p >= 0.5).astype(int)
     rng = np.random.default_rng(3)
     for k in rng.choice(len(fams), 8, replace=False):
