@@ -2,7 +2,8 @@
 
 The public names load their modules when first used, so ``import audit`` (and the command
 line's ``--help``) stays light: ``audit.run``, ``audit.AuditResult``, ``audit.fit``,
-``audit.summarize``, ``audit.Tally``, ``audit.AuditInputError``.
+``audit.summarize``, ``audit.Tally``, ``audit.AuditInputError``, and ``audit.save(result, folder)``
+(the files the command line writes).
 """
 __version__ = "0.1.0"
 
@@ -17,10 +18,11 @@ _LAZY = {
     "Encoding": ("core.encoding", "Encoding"),
     "make_config": ("settings", "make_config"),
     "AuditConfig": ("settings", "AuditConfig"),
+    "save": ("faces.export", "save"),
 }
 
 __all__ = ["run", "AuditResult", "AuditInputError", "fit", "summarize", "Tally", "Encoding", "make_config",
-           "AuditConfig", "__version__"]
+           "AuditConfig", "save", "__version__"]
 
 
 def __getattr__(name):

@@ -14,11 +14,11 @@ from dataclasses import fields
 from typing import Any, Sequence
 
 from .. import __version__
-from ..settings import AuditConfig, load_toml
-from ..stats.correct import CORRECTIONS
 from ..errors import AuditInputError
-from ..stats.intervals import INTERVALS
-from ..stats.measure import METRICS
+from ..settings import AuditConfig, load_toml
+from ..stats.methods import CORRECTION_METHODS as CORRECTIONS
+from ..stats.methods import INTERVAL_METHODS as INTERVALS
+from ..stats.methods import METRICS
 from .gate import GATE_SCOPES
 
 EXIT_OK, EXIT_GATE, EXIT_INPUT = 0, 1, 2
@@ -68,6 +68,12 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--positive", help="the positive class (inferred for 0/1, false/true, no/yes)")
     g.add_argument("--threshold", type=float, help="with --score only: predict positive when score >= T (0.5)")
     g.add_argument("--attributes", type=_csv_list, help="comma-separated attribute columns (default: all others)")
+    g.add_argument("--categorical", type=_csv_list, metavar="COL,...",
+                   help="numeric columns to slice as categories (branch, state or product codes)")
+    g.add_argument("--numeric", type=_csv_list, metavar="COL,...",
+                   help="numeric columns to bin even when they have few distinct values")
+    g.add_argument("--drop-unlabelled", action="store_true", default=None,
+                   help="leave out rows with a missing label (counted and reported) instead of stopping")
     g.add_argument("--bins", type=int, help="quantile bins per numeric attribute (5)")
     g.add_argument("--bin-edges", type=_edges, action="append", metavar="COL=E0,E1,...",
                    help="explicit bin edges for one numeric column (repeatable)")
@@ -100,6 +106,11 @@ def build_parser() -> argparse.ArgumentParser:
                    help="also write report.pdf (needs Chromium: Debian's chromium, or FISSURE_CHROMIUM=PATH)")
     o = a.add_argument_group("output")
     o.add_argument("--config", help="TOML settings file (command-line options override it)")
+    o.add_argument("--encoding", metavar="NAME",
+                   help="text encoding of a CSV file, e.g. cp1252 or latin-1 (default: UTF-8, strictly)")
+    o.add_argument("--chunk-rows", type=int, metavar="N",
+                   help="read the file N rows at a time (memory bounded by the chunk, not the file); a "
+                        "folder of Parquet files or a glob of CSV files is always read in chunks")
     o.add_argument("--out", default="fissure-out",
                    help="output folder (fissure-out): new, empty, or holding a previous Fissure run, whose files "
                         "this run replaces")
@@ -159,7 +170,6 @@ def audit_command(args: argparse.Namespace, argv: Sequence[str]) -> int:
     from .export import NO_CHROMIUM, build_files, check_output_folder, now_utc, write_run
     from .gate import check_gate_settings, evaluate_gate
     from .prose import terminal_summary
-    from ..core.read import read_table
 
     # Everything a user can get wrong is checked before any computing.
     settings = settings_from(args)
@@ -178,8 +188,7 @@ def audit_command(args: argparse.Namespace, argv: Sequence[str]) -> int:
 
     bar = _Bar(not args.quiet)
     try:
-        df, source = read_table(args.data)
-        result = run(df, source=source, progress=bar, **settings)
+        result = run(args.data, progress=bar, **settings)
     finally:
         bar.close()
     created = now_utc()  # one timestamp for every file of the run

@@ -91,12 +91,6 @@ class AuditResult:
             keyed.append((order[attr.strip()], p))
         return " & ".join(p for _, p in sorted(keyed))
 
-    def save(self, folder, **options):
-        """Write the same files as the command line (see ``audit.faces.export.save``)."""
-        from ..faces.export import save
-
-        return save(self, folder, **options)
-
     def rest_counts(self, name: str) -> dict[str, int]:
         """Confusion counts of the rows outside slice ``name``."""
         s = self.slice(name)
