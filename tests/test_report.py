@@ -212,10 +212,10 @@ def test_fairness_flags_in_table_findings_and_signoff(fair_run):
     raw = (fair_run / "out" / "report.html").read_text()
     fair = raw[raw.index("<section id='fairness'>"):raw.index("<section id='limits'>")]
     text = _words(fair)
-    for h in ("adjusted p: selection", "flag and direction", "selection rate (predicted 1)"):
+    for h in ("adj. p selection", "adj. p PPV", "flag and direction", "selection rate (predicted 1)"):
         assert h in text
     assert "⚑ flagged" in text
-    assert "lower selection rate than 'a' — at a disadvantage" in text
+    assert "• lower selection rate than 'a' — at a disadvantage" in text
     assert "higher false-positive rate than 'a' — in the group's favour" in text
     assert "higher positive predictive value than 'a' — at a disadvantage" in text  # b: a higher bar
     sign = raw[raw.index("<section id='signoff'>"):raw.index("<section id='reproduce'>")]

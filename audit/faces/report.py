@@ -44,7 +44,8 @@ table.wide { font-size: 11.5px; }
 th, td { border: 1px solid var(--rule); padding: 3px 7px; text-align: left; vertical-align: top; }
 th { background: #eef2f7; } td.num { text-align: right; font-variant-numeric: tabular-nums; }
 .flag { color: var(--flag); font-weight: bold; } .muted { color: var(--muted); }
-.favour { color: var(--ink); font-style: italic; }
+.favour { color: var(--ink); font-style: italic; } .disadv { color: var(--flag); }
+td.reading { min-width: 16em; } td.num { white-space: nowrap; }
 .caution { border-left: 5px solid var(--flag); background: #fdf3ec; padding: .6em 1em; margin: 1em 0; }
 .gate-blocked { border: 2px solid var(--flag); padding: .5em 1em; } .gate-passed { border: 2px solid var(--ink);
      padding: .5em 1em; } .gate-none { border: 1px dashed var(--rule); padding: .5em 1em; }
@@ -80,13 +81,14 @@ def _p(x) -> str:
     return fmt_p(x)
 
 
-def _table(header, rows, num_cols=(), cls: str = "") -> str:
+def _table(header, rows, num_cols=(), cls: str = "", col_class=None) -> str:
     klass = f" class='{cls}'" if cls else ""
     out = [f"<table{klass}><thead><tr>" + "".join(f"<th>{e(h)}</th>" for h in header) + "</tr></thead><tbody>"]
     for r in rows:
         cells = []
         for i, v in enumerate(r):
-            c = ' class="num"' if i in num_cols else ""
+            c = ' class="num"' if i in num_cols else (f' class="{col_class[i]}"' if col_class and i in col_class
+                                                         else "")
             cells.append(f"<td{c}>{v}</td>")
         out.append("<tr>" + "".join(cells) + "</tr>")
     out.append("</tbody></table>")
@@ -477,11 +479,12 @@ def _fairness_section(result, found, lvl: int) -> tuple[str, int]:
         parts.append(f"<p class='muted'>{e(note)}</p>")
     by_group: dict[tuple[str, str], list[str]] = {}
     for _, r in found.iterrows():
-        cls = "flag" if r["disadvantaged"] else "favour"
+        cls = "disadv" if r["disadvantaged"] else "favour"
         by_group.setdefault((r["attribute"], r["group"]), []).append(
-            f"<span class='{cls}'>{e(r['direction'])} — {e(r['reading'])}</span>")
+            f"<span class='{cls}'>• {e(r['direction'])} — {e(r['reading'])}</span>")
     header = ["attribute", "group", "n", f"selection rate (predicted {fav})", "impact ratio", "below 4/5", "TPR",
-              "FPR", "PPV", "equalized-odds gap", "adjusted p: selection", "TPR", "FPR", "PPV", "flag and direction"]
+              "FPR", "PPV", "equalized-odds gap", "adj. p selection", "adj. p TPR", "adj. p FPR", "adj. p PPV",
+              "flag and direction"]
     rows = []
     for _, r in fr.groups.iterrows():
         below = "<span class='flag'>yes</span>" if r["below_four_fifths"] else "no"
@@ -498,7 +501,8 @@ def _fairness_section(result, found, lvl: int) -> tuple[str, int]:
                      f"{int(r['n']):,}", _f(r["selection_rate"]), _f(r["impact_ratio"], 3), below, _f(r["tpr"]),
                      _f(r["fpr"]), _f(r["ppv"]), _f(r["equalized_odds_gap"]), _p(r.get("selection_q")),
                      _p(r.get("tpr_q")), _p(r.get("fpr_q")), _p(r.get("ppv_q")), flag])
-    parts.append(_table(header, rows, num_cols=(2, 3, 4, 6, 7, 8, 9, 10, 11, 12, 13), cls="wide"))
+    parts.append(_table(header, rows, num_cols=(2, 3, 4, 6, 7, 8, 9, 10, 11, 12, 13), cls="wide",
+                        col_class={14: "reading"}))
     if len(found):
         parts.append("<h3>Fairness findings</h3><ul>"
                      + "".join(f"<li class='{'flag' if r['disadvantaged'] else 'favour'}'>{e(finding_text(r))}</li>"
