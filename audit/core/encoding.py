@@ -108,7 +108,7 @@ def _text_of(u) -> str:
     return str(u)
 
 
-def _raw_levels(s: pd.Series):
+def _raw_levels(s: pd.Series, *, compiled: bool = False):
     """Raw codes (-1 = missing), their texts and per-code row counts."""
     if isinstance(s.dtype, pd.CategoricalDtype):
         raw = np.asarray(s.array.codes)  # the column's own codes, no copy
@@ -116,8 +116,16 @@ def _raw_levels(s: pd.Series):
     else:
         raw, uniques = pd.factorize(s, use_na_sentinel=True)
         text = [_text_of(u) for u in list(uniques)]
-    n_missing = int((raw < 0).sum())
-    counts = np.bincount(raw[raw >= 0] if n_missing else raw, minlength=len(text))
+    if raw.dtype.itemsize <= 2:
+        # Viewing the signed codes as unsigned puts -1 (missing) in the histogram's last bin.
+        from .tally import small_histogram
+
+        hist = small_histogram(raw.view(np.dtype(f"u{raw.dtype.itemsize}")), 1 << (8 * raw.dtype.itemsize),
+                               compiled=compiled)
+        counts, n_missing = hist[:len(text)], int(hist[-1])
+    else:
+        n_missing = int((raw < 0).sum())
+        counts = np.bincount(raw[raw >= 0] if n_missing else raw, minlength=len(text))
     return raw, text, counts, n_missing
 
 
@@ -125,7 +133,8 @@ def is_numeric(s: pd.Series) -> bool:
     return pd.api.types.is_numeric_dtype(s) and not pd.api.types.is_bool_dtype(s)
 
 
-def profile_column(s: pd.Series, name: str, *, as_text: bool = False, cache: dict | None = None) -> ColumnProfile:
+def profile_column(s: pd.Series, name: str, *, as_text: bool = False, cache: dict | None = None,
+                   compiled: bool = False) -> ColumnProfile:
     """Profile one column of one chunk. ``cache`` (a dict) receives work that
     :meth:`Encoding.apply` can reuse on the same chunk."""
     if is_numeric(s) and not as_text:
@@ -145,7 +154,7 @@ def profile_column(s: pd.Series, name: str, *, as_text: bool = False, cache: dic
         if cache is not None:
             cache[name] = ("numeric", v)
         return p
-    raw, text, counts, n_missing = _raw_levels(s)
+    raw, text, counts, n_missing = _raw_levels(s, compiled=compiled)
     p = ColumnProfile(name, "text", len(raw), n_missing)
     if len(text) > TEXT_CAP:
         p.counts = None
@@ -267,6 +276,11 @@ class AttributeCoding:
         pos = {t: i for i, t in enumerate(self.levels) if t != MISSING or not self.has_missing}
         miss_code = self.cardinality - 1 if self.has_missing else -1
         remap = np.array([pos.get(t, -1) for t in text] + [miss_code], dtype=np.int32)
+        if raw.dtype.itemsize == 1 and dt == np.uint8 and miss_code == -1 and \
+                np.array_equal(remap[:-1], np.arange(len(text))):
+            if len(raw) and int(raw.min()) < 0:
+                raise _unseen(self.name, MISSING, offset + int(np.flatnonzero(raw < 0)[0]))
+            return raw.view(np.uint8)  # already in level order: the column's own codes, no copy
         codes = np.take(remap, raw, mode="wrap")  # raw -1 (missing) takes the last entry
         if (codes < 0).any():
             i = int(np.flatnonzero(codes < 0)[0])

@@ -265,7 +265,9 @@ def fit(source: Source, cfg, *, progress: Progress | None = None, keep: dict | N
             rowpos = None
         po, ocache = profile_outcomes(df, cfg, offset=offset, rows=rowpos)
         acache: dict = {}
-        pc = [profile_column(df[c], c, as_text=c in cfg.categorical, cache=acache) for c in cols]
+        a = len(cols)
+        compiled = use_compiled(len(df), 1 + a + (a * (a - 1) // 2 if cfg.max_order >= 2 else 0))
+        pc = [profile_column(df[c], c, as_text=c in cfg.categorical, cache=acache, compiled=compiled) for c in cols]
         prof_out = po if prof_out is None else prof_out + po
         profiles = pc if profiles is None else [a + b for a, b in zip(profiles, pc)]
         if cfg.score is not None and cfg.protected and source.chunked:
