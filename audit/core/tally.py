@@ -36,7 +36,7 @@ N_SUMS = len(LOSS_SUMS)
 KERNEL_BLOCK = 8192
 #: Rows × families from which the compiled kernels are used by default: below it the numpy
 #: path is faster than loading numba and its cached kernels (about a second).
-COMPILED_MIN_WORK = 20_000_000
+COMPILED_MIN_WORK = 5_000_000
 
 
 def numba_available() -> bool:
