@@ -1,5 +1,7 @@
 """End to end in a real browser: Debian's chromium driven by Playwright."""
+import csv
 import os
+import re
 import subprocess
 import sys
 
@@ -17,7 +19,7 @@ def test_upload_rank_download_matches_cli(page, app_url, demo_csv, tmp_path):
     page.set_viewport_size({"width": 1400, "height": 2400})
     page.goto(app_url, wait_until="domcontentloaded")
     expect(page.get_by_text("The whole model first")).to_be_visible(timeout=90_000)
-    page.locator('[data-testid="stFileUploader"] input[type="file"]').set_input_files(demo_csv)
+    page.locator(UPLOADER).set_input_files(demo_csv)
     expect(page.get_by_text("Using the uploaded file")).to_be_visible(timeout=90_000)
     ranked = page.locator('[data-testid="stDataFrame"]').nth(1)
     top = ranked.locator('[data-testid="glide-cell-1-0"]').first
@@ -38,6 +40,117 @@ def test_upload_rank_download_matches_cli(page, app_url, demo_csv, tmp_path):
     assert got.read_bytes() == (out / "slices.csv").read_bytes()
     page.get_by_text("Where noise ends").first.scroll_into_view_if_needed()
     page.screenshot(path=os.path.join(shots, "page-lower.png"))
+
+
+UPLOADER = '[data-testid="stFileUploader"] input[type="file"]'
+
+
+def _shots(tmp_path):
+    return os.environ.get("FISSURE_SCREENSHOTS") or str(tmp_path)
+
+
+def _idle(page):
+    """Wait until the script run is over (Streamlit shows its status widget while running)."""
+    page.wait_for_timeout(300)
+    expect(page.locator('[data-testid="stStatusWidget"]')).to_have_count(0, timeout=90_000)
+
+
+def _open(page, label):
+    """Open the select box whose label is ``label``; return its option list."""
+    _idle(page)
+    box = page.locator('[data-testid="stSelectbox"]').filter(has_text=label).first
+    box.scroll_into_view_if_needed()
+    box.locator("input").click()
+    options = page.get_by_role("option")
+    expect(options.first).to_be_visible(timeout=30_000)
+    return options
+
+
+def _select(page, label, option):
+    _open(page, label)
+    page.get_by_role("option", name=option, exact=True).click()
+
+
+def _panel(page) -> dict:
+    """The counts the page shows for the picked slice: name, n, errors, tp, fp, fn, tn."""
+    line = page.locator('[data-testid="stMarkdownContainer"]').filter(has_text=re.compile(r" · n = [\d,]+ rows"))
+    text = line.first.inner_text()
+    out = {"slice": text.split(" · ")[0].strip()}
+    for k, v in re.findall(r"(n|errors|tp|fp|fn|tn) =? ?([\d,]+)", text):
+        out[k] = int(v.replace(",", ""))
+    return out
+
+
+def test_main_path_picked_slice_equals_downloaded_row(page, app_url, tmp_path):
+    """Demo → upload → run → change metric → pick a slice: the slice's counts on the page are its
+    row of the slices.csv the page hands out."""
+    from test_page import churn_table
+
+    df = churn_table(n=3000, seed=14)
+    src = tmp_path / "churn.csv"
+    df.to_csv(src, index=False)
+    page.set_viewport_size({"width": 1400, "height": 2200})
+    page.goto(app_url, wait_until="domcontentloaded")
+    expect(page.get_by_text("The whole model first")).to_be_visible(timeout=90_000)
+    page.locator(UPLOADER).set_input_files(str(src))
+    expect(page.get_by_text("Using the uploaded file")).to_be_visible(timeout=90_000)
+    # The first render after the upload shows the new file's guesses.
+    label_box = page.locator('[data-testid="stSelectbox"]').filter(has_text="True label column").first
+    expect(label_box.locator("input")).to_have_value("churned", timeout=60_000)
+    expect(page.locator('[data-testid="stSelectbox"]').filter(has_text="Predicted probability").first
+           .locator("input")).to_have_value("p_churn")
+    expect(page.get_by_text("Rows").first).to_be_visible()
+    page.screenshot(path=os.path.join(_shots(tmp_path), "after-upload.png"), full_page=False)
+    page.get_by_role("button", name="Run the audit").click()
+    _idle(page)
+    _select(page, "Audited metric", "recall — recall (true-positive rate)")
+    page.get_by_role("button", name="Run the audit").click()
+    expect(page.get_by_text(re.compile(r"for recall \(true-positive rate\)\. Flags cover only"))).to_be_visible(
+        timeout=60_000)
+    options = _open(page, "Slice (follows the filters above)")
+    wanted = options.nth(2).inner_text().strip()
+    options.nth(2).click()
+    expect(page.locator('[data-testid="stMarkdownContainer"]').filter(has_text=wanted + " · n = ").first) \
+        .to_be_visible(timeout=60_000)
+    shown = _panel(page)
+    assert shown["slice"] == wanted
+    page.screenshot(path=os.path.join(_shots(tmp_path), "picked-slice.png"), full_page=False)
+    with page.expect_download(timeout=60_000) as dl:
+        page.get_by_role("button", name="slices.csv").click()
+    got = tmp_path / "slices.csv"
+    dl.value.save_as(got)
+    rows = {r["slice"]: r for r in csv.DictReader(open(got, encoding="utf-8"))}
+    row = rows[wanted]
+    assert row["metric"] == "recall"
+    for k in ("n", "errors", "tp", "fp", "fn", "tn"):
+        assert shown[k] == int(row[k]), k
+
+
+def test_four_sessions_at_once(browser, app_url, tmp_path):
+    """Four browser sessions upload different small files at the same time; each sees its own audit."""
+    from conftest import random_table
+
+    pages, files = [], []
+    for i in range(4):
+        df = random_table(n=1500 + 100 * i, seed=40 + i, effect=0.3)
+        path = tmp_path / f"session{i}.csv"
+        df.to_csv(path, index=False)
+        files.append((path, len(df)))
+        ctx = browser.new_context(viewport={"width": 1200, "height": 1400})
+        pages.append(ctx.new_page())
+    for p in pages:
+        p.goto(app_url, wait_until="domcontentloaded")
+    for p in pages:
+        expect(p.get_by_text("The whole model first")).to_be_visible(timeout=120_000)
+    for p, (path, _) in zip(pages, files):
+        p.locator(UPLOADER).set_input_files(str(path))  # the uploads and audits overlap on the server
+    for p, (path, n) in zip(pages, files):
+        expect(p.get_by_text(f"Using the uploaded file {path.name}")).to_be_visible(timeout=120_000)
+        rows = p.locator('[data-testid="stMetric"]').filter(has_text="Rows").first
+        expect(rows).to_contain_text(f"{n:,}", timeout=120_000)
+        expect(p.locator('[data-testid="stDataFrame"]').nth(1)).to_be_visible()
+    for p in pages:
+        p.context.close()
 
 
 def test_hostile_report_runs_no_script(page, tmp_path):

@@ -297,7 +297,7 @@ for k in ["accuracy", "error_rate", "precision", "recall", "specificity", "fpr",
         continue
     rows.append({"metric": k, "value": o[k], f"{lvl}% low": o.get(k + "_low"), f"{lvl}% high": o.get(k + "_high")})
 NUM4 = st.column_config.NumberColumn(format="%.4f")
-left.dataframe(pd.DataFrame(rows), hide_index=True, width="stretch",
+left.dataframe(pd.DataFrame(rows), hide_index=True, width="stretch", height=35 * (len(rows) + 1) + 3,
                column_config={"value": NUM4, f"{lvl}% low": NUM4, f"{lvl}% high": NUM4})
 right.plotly_chart(charts.confusion(o, result.classes, title="Confusion matrix, all rows"), key="confusion_all")
 

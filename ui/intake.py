@@ -32,6 +32,7 @@ NA_TEXT = ["", "#N/A", "#N/A N/A", "#NA", "-1.#IND", "-1.#QNAN", "-NaN", "-nan",
 FAST_EXTENSIONS = (".csv", ".tsv", ".txt", "")
 DICT_LIMIT = 1000        # text columns with more distinct values stay plain text
 MAX_LEVELS = 100         # the engine's default limit for categorical attributes
+MAX_COLUMNS = 10_000     # the engine reader's limit
 ID_MIN_VALUES = 20       # identifier-like: more than this many values and ≥ 90% distinct (the engine's rule)
 
 
@@ -74,7 +75,10 @@ def _fast_csv(data: bytes, name: str) -> pd.DataFrame | None:
     if ext not in FAST_EXTENSIONS:
         return None
     body = memoryview(data)[3:] if data[:3] == b"\xef\xbb\xbf" else memoryview(data)
-    parse = pc.ParseOptions(delimiter="\t" if ext == ".tsv" else ",")
+    delimiter = "\t" if ext == ".tsv" else ","
+    if _header_delimiter(bytes(body[:65536])) != delimiter or b"\0" in data:
+        return None  # another delimiter, or binary content: the engine's reader decides and explains
+    parse = pc.ParseOptions(delimiter=delimiter)
     convert = dict(null_values=NA_TEXT, strings_can_be_null=True, true_values=["True", "TRUE", "true"],
                    false_values=["False", "FALSE", "false"], auto_dict_encode=True,
                    auto_dict_max_cardinality=DICT_LIMIT)
@@ -83,7 +87,7 @@ def _fast_csv(data: bytes, name: str) -> pd.DataFrame | None:
     except (pa.ArrowInvalid, pa.ArrowTypeError, UnicodeDecodeError, ValueError):
         return None
     names = table.column_names
-    if len(names) < 2 or len(set(names)) != len(names) or table.num_rows == 0:
+    if not 2 <= len(names) <= MAX_COLUMNS or len(set(names)) != len(names) or table.num_rows == 0:
         return None
     plain = (pa.types.is_integer, pa.types.is_floating, pa.types.is_boolean, pa.types.is_string,
              pa.types.is_large_string, pa.types.is_dictionary)
@@ -100,6 +104,16 @@ def _fast_csv(data: bytes, name: str) -> pd.DataFrame | None:
         except (pa.ArrowInvalid, pa.ArrowTypeError, ValueError):
             return None
     return table.to_pandas()
+
+
+def _header_delimiter(head: bytes) -> str | None:
+    """The most frequent of , ; tab | outside quotes on the header line (None: not clear-cut)."""
+    line = head.split(b"\n", 1)[0].decode("utf-8", errors="replace")
+    line = re.sub(r'"[^"]*"', "", line)
+    counts = {d: line.count(d) for d in (",", ";", "\t", "|")}
+    best = max(counts.values())
+    winners = [d for d, c in counts.items() if c == best]
+    return winners[0] if best and len(winners) == 1 else None
 
 
 def _profile(df: pd.DataFrame, *, fast: bool) -> dict[str, Column]:
