@@ -22,6 +22,14 @@ def demo_df() -> pd.DataFrame:
 
 
 @pytest.fixture(scope="session")
+def demo_result(demo_df):
+    """The demo audited once with default settings, shared by every test that only reads it."""
+    import audit
+
+    return audit.run(demo_df, label="delinquent", score="p_delinquent")
+
+
+@pytest.fixture(scope="session")
 def demo_csv(tmp_path_factory, demo_df) -> str:
     path = tmp_path_factory.mktemp("demo") / "predictions.csv"
     demo_df.to_csv(path, index=False)

@@ -12,8 +12,8 @@ from conftest import slice_mask
 from audit.stats.measure import count_frame, metric_values
 
 
-def test_every_metric_matches_sklearn_for_random_slices(demo_df):
-    res = audit.run(demo_df, label="delinquent", score="p_delinquent")
+def test_every_metric_matches_sklearn_for_random_slices(demo_df, demo_result):
+    res = demo_result
     sl = res.slices
     y = demo_df["delinquent"].to_numpy()
     p = demo_df["p_delinquent"].to_numpy()
