@@ -129,13 +129,18 @@ def _resolved(cfg: AuditConfig, fitted: Fitted) -> AuditConfig:
     the favourable outcome in the label's own spelling."""
     from dataclasses import replace
 
-    out = replace(cfg, positive=fitted.outcomes.positive) if cfg.positive is None or \
-        cfg.positive != fitted.outcomes.positive else cfg
+    out = cfg
+    if fitted.outcomes.positive is not None and cfg.positive != fitted.outcomes.positive:
+        out = replace(out, positive=fitted.outcomes.positive)
     if cfg.favorable is not None:
         from .core.outcomes import _match_class
 
-        fav = _match_class(cfg.favorable, fitted.outcomes.classes)
-        if fav is None:  # pragma: no cover - checked in the first pass
-            raise AuditInputError(f"favourable outcome '{cfg.favorable}' is not a class of the label")
-        out = replace(out, favorable=fav)
+        favs = cfg.favorable if isinstance(cfg.favorable, tuple) else (cfg.favorable,)
+        named = []
+        for f in favs:
+            fav = _match_class(f, fitted.outcomes.classes)
+            if fav is None:  # pragma: no cover - checked in the first pass
+                raise AuditInputError(f"favourable outcome '{f}' is not a class of the label")
+            named.append(fav)
+        out = replace(out, favorable=named[0] if len(named) == 1 else tuple(sorted(named)))
     return out

@@ -22,7 +22,7 @@ from typing import Any, Mapping
 
 from .core.values import canonical
 from .errors import AuditInputError
-from .stats.methods import CORRECTION_METHODS, INTERVAL_METHODS, METRICS
+from .stats.methods import CLASS_METRICS, CORRECTION_METHODS, INTERVAL_METHODS, METRICS, MULTICLASS_ONLY
 
 #: Highest slice order (number of attributes combined).
 MAX_ORDER = 2
@@ -34,7 +34,7 @@ class AuditConfig:
 
     label: str
     pred: str | None = None
-    score: str | None = None
+    score: str | dict[str, str] | None = None
     positive: str | None = None
     threshold: float = 0.5
     attributes: tuple[str, ...] | None = None
@@ -53,7 +53,7 @@ class AuditConfig:
     max_order: int = 2
     auc_max_order: int = 1
     protected: tuple[str, ...] | None = None
-    favorable: str | None = None
+    favorable: str | tuple[str, ...] | None = None
     reference: dict[str, str] = field(default_factory=dict)
     min_group_share: float = 0.02
     drop_unlabelled: bool = False
@@ -230,7 +230,19 @@ def make_config(**settings: Any) -> AuditConfig:
     out: dict[str, Any] = {}
     out["label"] = _column("label", s.get("label"), required=True)
     out["pred"] = _column("pred", s.get("pred"))
-    out["score"] = _column("score", s.get("score"))
+    score = s.get("score")
+    if isinstance(score, Mapping):
+        # one probability column per class: {class: column}
+        if len(score) < 2:
+            raise _bad("score", "a column name, or a mapping {class: column} with one column per class", score)
+        canon_score = {}
+        for k, v in score.items():
+            canon_score[canonical(k)] = _column("score", v)
+        if len(set(canon_score.values())) < len(canon_score):
+            raise AuditInputError("score names the same probability column for two classes", setting="score")
+        out["score"] = canon_score
+    else:
+        out["score"] = _column("score", score)
     out["positive"] = _class_value("positive", s.get("positive"))
     out["threshold"] = _real("threshold", s.get("threshold", 0.5), 0.0, 1.0, lo_open=False, hi_open=False)
     out["attributes"] = _names("attributes", s.get("attributes"), empty_ok=False)
@@ -259,7 +271,15 @@ def make_config(**settings: Any) -> AuditConfig:
         canon_edges[col] = vals
     out["bin_edges"] = canon_edges
     out["max_levels"] = _whole("max_levels", s.get("max_levels", 100), 2)
-    out["metric"] = _choice("metric", s.get("metric", "error_rate"), list(METRICS))
+    metric = s.get("metric", "error_rate")
+    base, sep, cls = metric.partition(":") if isinstance(metric, str) else ("", "", "")
+    if sep and base in CLASS_METRICS and cls:
+        out["metric"] = metric  # a per-class rate of a multi-class audit, checked against the classes later
+    elif metric in MULTICLASS_ONLY:
+        out["metric"] = metric
+    else:
+        out["metric"] = _choice("metric", metric, list(METRICS) + list(MULTICLASS_ONLY) +
+                                [f"{b}:CLASS" for b in CLASS_METRICS])
     out["min_support"] = _whole("min_support", s.get("min_support", 30), 1)
     out["min_metric_support"] = _whole("min_metric_support", s.get("min_metric_support", 10), 1)
     alpha = s.get("alpha", 0.05)
@@ -281,7 +301,15 @@ def make_config(**settings: Any) -> AuditConfig:
         raise _bad("auc_max_order", "-1 (none), 0, 1 or 2", ao)
     out["auc_max_order"] = int(ao)
     out["protected"] = _names("protected", s.get("protected"), empty_ok=True) or None
-    out["favorable"] = _class_value("favorable", s.get("favorable"))
+    fav = s.get("favorable")
+    if isinstance(fav, (list, tuple, set)):
+        if not fav:
+            raise _bad("favorable", "a class value or a list of class values", fav)
+        out["favorable"] = tuple(sorted({canonical(v) for v in fav}))
+        if len(out["favorable"]) == 1:
+            out["favorable"] = out["favorable"][0]
+    else:
+        out["favorable"] = _class_value("favorable", fav)
     ref = s.get("reference") or {}
     if not isinstance(ref, Mapping):
         raise _bad("reference", "a mapping {protected attribute: group}", ref)
@@ -310,7 +338,7 @@ def make_config(**settings: Any) -> AuditConfig:
     if cfg.pred is None and cfg.score is None:
         raise AuditInputError("give a prediction column (pred=..., --pred) or a probability column "
                               "(score=..., --score)", setting="pred")
-    if METRICS[cfg.metric].needs_score and cfg.score is None:
+    if cfg.metric in METRICS and METRICS[cfg.metric].needs_score and cfg.score is None:
         raise AuditInputError(f"metric '{cfg.metric}' needs a probability column (score=..., --score)",
                               setting="metric")
     if cfg.reference and not cfg.protected:

@@ -346,8 +346,6 @@ def test_cli_random_inputs(capsys, table, args, how):
 # cases the fuzzing found outside the reader, kept as regression tests until fixed
 
 
-@pytest.mark.xfail(strict=True, reason="engine bug reported to lead: the reasons of skipped attributes quote "
-                                       "column names raw, so a name with a line break splits the one-line error")
 def test_skipped_attribute_names_are_quoted():
     # found by test_cli_random_inputs (FISSURE_FUZZ_SEED=1): a CSV column named "x<newline>y", all empty
     df = pd.DataFrame({"y": [0, 1] * 20, "p": [0.2] * 40, "x\ny": [None] * 40})

@@ -260,3 +260,78 @@ def _u_kernel(ss, sy, sc, start, fa, fb, cb, off, total, nth):  # pragma: no cov
             out[q] += R[t, q, 0] + R[t, q, 2] * below[q]
             below[q] += R[t, q, 1]
     return out
+
+
+@njit(parallel=True, cache=True, nogil=True)
+def _triple_kernel(cm, cell, ll, br, fi, fj, fk, cj, ck, rm_off, rowmap, lut_off, lut, off, total, nth,
+                   block):  # pragma: no cover - compiled
+    # Kept triples only: a row's (first, second) value cell picks a row of the family's lookup
+    # table (-1: that pair is below support), its third value the triple's slot (-1: pruned).
+    # Same record and the same walk as _binary_kernel: rows in blocks, one family at a time.
+    n = cell.shape[0]
+    nf = fi.shape[0]
+    acc = np.zeros((nth, total * 8), dtype=np.float64)
+    chunk = (n + nth - 1) // nth
+    for t in prange(nth):
+        lo = t * chunk
+        hi = min(n, lo + chunk)
+        o = acc[t]
+        for blo in range(lo, hi, block):
+            bhi = min(hi, blo + block)
+            for f in range(nf):
+                a = cm[fi[f]]
+                b = cm[fj[f]]
+                c = cm[fk[f]]
+                w = cj[f]
+                kw = ck[f]
+                r0 = rm_off[f]
+                l0 = lut_off[f]
+                start = off[f]
+                for r in range(blo, bhi):
+                    row = rowmap[r0 + np.int64(a[r]) * w + b[r]]
+                    if row < 0:
+                        continue
+                    s = lut[l0 + np.int64(row) * kw + c[r]]
+                    if s < 0:
+                        continue
+                    base = (start + s) * 8
+                    x = ll[r]
+                    y = br[r]
+                    o[base + cell[r]] += 1.0
+                    o[base + 4] += x
+                    o[base + 5] += x * x
+                    o[base + 6] += y
+                    o[base + 7] += y * y
+    return acc
+
+
+@njit(parallel=True, cache=True, nogil=True)
+def _group_triple_kernel(gt, cell, ll, br, ga, gb, gc, wb, wc, off, total, nth, block):  # pragma: no cover
+    # _binary_kernel for triples of attribute groups: one record per cell of each group triple.
+    n = cell.shape[0]
+    nf = ga.shape[0]
+    acc = np.zeros((nth, total * 8), dtype=np.float64)
+    chunk = (n + nth - 1) // nth
+    for t in prange(nth):
+        lo = t * chunk
+        hi = min(n, lo + chunk)
+        o = acc[t]
+        for blo in range(lo, hi, block):
+            bhi = min(hi, blo + block)
+            for k in range(nf):
+                start = off[k]
+                ca = gt[ga[k]]
+                cb = gt[gb[k]]
+                cc = gt[gc[k]]
+                w1 = wb[k]
+                w2 = wc[k]
+                for r in range(blo, bhi):
+                    base = (start + (np.int64(ca[r]) * w1 + cb[r]) * w2 + cc[r]) * 8
+                    a = ll[r]
+                    b = br[r]
+                    o[base + cell[r]] += 1.0
+                    o[base + 4] += a
+                    o[base + 5] += a * a
+                    o[base + 6] += b
+                    o[base + 7] += b * b
+    return acc

@@ -24,6 +24,11 @@ import pandas as pd
 from ..errors import AuditInputError, shown
 from .values import canonical, numeric_text
 
+#: Most classes a label may have (cells per slice grow as the square).
+MAX_CLASSES = 50
+#: A row's class probabilities must sum to 1 within this.
+PROB_SUM_TOLERANCE = 1e-4
+
 # Label pairs whose positive member is obvious; matched on lower-cased text.
 _KNOWN_PAIRS = [
     ("0", "1"), ("false", "true"), ("no", "yes"), ("n", "y"), ("f", "t"),
@@ -44,9 +49,10 @@ class Outcomes:
     yhat: np.ndarray
     score: np.ndarray | None
     classes: tuple[str, ...]
-    positive: str
+    positive: str | None
     positive_inferred: bool
-    prediction_source: str  # "column" or "threshold"
+    prediction_source: str  # "column", "threshold" or "most probable class"
+    probs: np.ndarray | None = None  # (rows, classes) probabilities of a multi-class audit
 
 
 def _row(pos: int) -> str:
@@ -101,11 +107,17 @@ def check_columns(df: pd.DataFrame) -> None:
         raise AuditInputError("the table has no rows")
 
 
+def _score_columns(cfg) -> list[str]:
+    if cfg.score is None:
+        return []
+    return list(cfg.score.values()) if isinstance(cfg.score, dict) else [cfg.score]
+
+
 def need_columns(columns, cfg) -> None:
     """Each named outcome column exists (one line naming the first that does not)."""
     cols = list(columns)
-    for role, setting, col in (("label", "label", cfg.label), ("prediction", "pred", cfg.pred),
-                               ("probability", "score", cfg.score)):
+    for role, setting, col in [("label", "label", cfg.label), ("prediction", "pred", cfg.pred)] + \
+            [("probability", "score", c) for c in _score_columns(cfg)]:
         if col is not None and col not in cols:
             listed = ", ".join(shown(c, 30)[1:-1] for c in cols[:8])
             more = ", ..." if len(cols) > 8 else ""
@@ -125,11 +137,14 @@ class OutcomeProfile:
     pred_first: dict[str, int] = field(default_factory=dict)
     n_rows: int = 0
     n_unlabelled: int = 0
+    sum_off: tuple[int, float] | None = None  # first row whose class probabilities do not sum to 1
 
     def __add__(self, other: "OutcomeProfile") -> "OutcomeProfile":
+        offs = [x for x in (self.sum_off, other.sum_off) if x is not None]
         return OutcomeProfile(_merge_first(self.label_first, other.label_first),
                               _merge_first(self.pred_first, other.pred_first),
-                              self.n_rows + other.n_rows, self.n_unlabelled + other.n_unlabelled)
+                              self.n_rows + other.n_rows, self.n_unlabelled + other.n_unlabelled,
+                              min(offs) if offs else None)
 
 
 def _merge_first(a: dict[str, int], b: dict[str, int]) -> dict[str, int]:
@@ -165,7 +180,16 @@ def profile_outcomes(df: pd.DataFrame, cfg, *, offset: int = 0, rows: np.ndarray
     prof = OutcomeProfile(n_rows=len(df))
     prof.label_first = {k: where(v) for k, v in _first_rows(ycodes, ytext, 0).items()}
     cache: dict[str, Any] = {"y": (ycodes, ytext)}
-    if cfg.score is not None:
+    if isinstance(cfg.score, dict):
+        cols = [_check_score(df[c], c, where) for c in cfg.score.values()]
+        probs = np.column_stack(cols)
+        total = probs.sum(axis=1)
+        off = np.abs(total - 1.0) > PROB_SUM_TOLERANCE
+        if off.any():  # reported after the classes are known (a missing class explains it better)
+            i = _first_bad(off)
+            prof.sum_off = (where(i), float(total[i]))
+        cache["probs"] = probs
+    elif cfg.score is not None:
         cache["score"] = _check_score(df[cfg.score], cfg.score, where)
     if cfg.pred is not None:
         ps = df[cfg.pred]
@@ -227,45 +251,118 @@ class OutcomeSpec:
     pred: str | None
     score: str | None
     classes: tuple[str, ...]
-    positive: str
+    positive: str | None
     positive_inferred: bool
     prediction_source: str
     threshold: float
+    probs: dict[str, str] | None = None  # class -> probability column (multi-class)
 
     @property
     def n_classes(self) -> int:
         return len(self.classes)
+
+    @property
+    def has_probabilities(self) -> bool:
+        return self.score is not None or self.probs is not None
 
     def apply(self, df: pd.DataFrame, cache: dict | None = None) -> Outcomes:
         """Encode a chunk (already checked by :func:`profile_outcomes`) as class indices."""
         cache = cache or {}
         ycodes, ytext = cache.get("y") or _canonical_codes(df[self.label])
         y = _is_text(ycodes, ytext, self.classes)
-        p = None
+        p = probs = None
         if self.score is not None:
             p = cache.get("score")
             if p is None:
                 p = pd.to_numeric(df[self.score], errors="coerce").to_numpy(dtype=float)
+        if self.probs is not None:
+            probs = cache.get("probs")
+            if probs is None:
+                probs = np.column_stack([pd.to_numeric(df[c], errors="coerce").to_numpy(dtype=float)
+                                         for c in self.probs.values()])
+            # columns in class order
+            order = [list(self.probs).index(c) for c in self.classes]
+            probs = probs[:, order]
         if self.pred is not None:
             pcodes, ptext = cache.get("pred") or _canonical_codes(df[self.pred])
             yhat = _is_text(pcodes, ptext, self.classes)
+        elif probs is not None:
+            yhat = np.argmax(probs, axis=1).astype(np.int8)  # ties: the class that sorts first
         else:
             yhat = (p >= self.threshold).view(np.int8)
         return Outcomes(y=y, yhat=yhat, score=p, classes=self.classes, positive=self.positive,
-                        positive_inferred=self.positive_inferred, prediction_source=self.prediction_source)
+                        positive_inferred=self.positive_inferred, prediction_source=self.prediction_source,
+                        probs=probs)
+
+
+def natural_key(v: str):
+    """Numbers in numeric order, then text."""
+    try:
+        return (0, float(v), v)
+    except ValueError:
+        return (1, 0.0, v)
 
 
 def fit_outcomes(profile: OutcomeProfile, cfg) -> OutcomeSpec:
-    """Classes and positive class from the whole table's profile (binary audits: two classes)."""
+    """Classes and (for two classes) the positive class from the whole table's profile.
+
+    Two classes: index 0 is the negative class, 1 the positive (stated or inferred). Three or
+    more: the classes in natural order (numbers numerically, then text); the prediction is the
+    predicted-label column or else the most probable class (ties: the class that sorts first).
+    """
     if profile.n_rows == 0:
         raise AuditInputError("the table has no labelled rows" if profile.n_unlabelled else "the table has no rows")
-    classes = sorted(profile.label_first)
     label = cfg.label
-    if len(classes) != 2:
-        listed = ", ".join(shown(c, 20)[1:-1] for c in classes[:5]) + (", ..." if len(classes) > 5 else "")
-        raise AuditInputError(
-            f"label column {shown(label)} has {len(classes)} distinct value{'s' if len(classes) != 1 else ''} "
-            f"({listed}); expected two (binary audit)", setting="label")
+    classes = sorted(profile.label_first, key=natural_key)
+    if len(classes) < 2:
+        listed = ", ".join(shown(c, 20)[1:-1] for c in classes)
+        raise AuditInputError(f"label column {shown(label)} has {len(classes)} distinct value ({listed}); "
+                              "expected two or more classes", setting="label")
+    probs = dict(cfg.score) if isinstance(cfg.score, dict) else None
+    extra = lacking = []
+    if probs is not None:
+        extra = [c for c in probs if c not in classes]
+        lacking = [c for c in classes if c not in probs]
+        if extra:
+            raise AuditInputError(f"probability column {shown(probs[extra[0]])} is given for class {shown(extra[0])}, "
+                                  f"which does not occur in label column {shown(label)} ({', '.join(classes[:8])})",
+                                  setting="score")
+        if lacking:
+            raise AuditInputError(f"class {shown(lacking[0])} of label column {shown(label)} has no probability "
+                                  "column; give one per class: score={class: column} (--score CLASS=COL,...)",
+                                  setting="score")
+    if cfg.pred is not None:
+        unknown = {k: v for k, v in profile.pred_first.items() if k not in classes}
+        if unknown:
+            value, row = min(unknown.items(), key=lambda kv: kv[1])
+            raise AuditInputError(f"prediction column {shown(cfg.pred)} has value {shown(value)} at {_row(row)}, "
+                                  f"which is not a class of label column {shown(label)} ({', '.join(classes[:8])})",
+                                  setting="pred")
+    if profile.sum_off is not None and probs is not None and not extra and not lacking:
+        row, total = profile.sum_off
+        raise AuditInputError(f"the probability columns ({', '.join(probs.values())}) sum to {total:.6g} at "
+                              f"{_row(row)}; each row must sum to 1 within {PROB_SUM_TOLERANCE:g}", setting="score")
+    if len(classes) > 2:
+        if cfg.positive is not None:
+            raise AuditInputError(f"label column {shown(label)} has {len(classes)} classes; a positive class applies "
+                                  "to two classes only — leave positive out for a multi-class audit",
+                                  setting="positive")
+        if cfg.score is not None and probs is None:
+            listed = ", ".join(shown(c, 20)[1:-1] for c in classes[:5]) + (", ..." if len(classes) > 5 else "")
+            raise AuditInputError(f"label column {shown(label)} has {len(classes)} distinct values ({listed}); a "
+                                  "multi-class audit needs one probability column per class: score={class: column} "
+                                  "(--score CLASS=COL,...)", setting="score")
+        if len(classes) > MAX_CLASSES:
+            raise AuditInputError(f"label column {shown(label)} has {len(classes)} classes; at most {MAX_CLASSES} "
+                                  "are supported", setting="label")
+        return OutcomeSpec(label=label, pred=cfg.pred, score=None, classes=tuple(classes), positive=None,
+                           positive_inferred=False,
+                           prediction_source="column" if cfg.pred is not None else "most probable class",
+                           threshold=cfg.threshold, probs=probs)
+    classes = sorted(classes)
+    if probs is not None:
+        raise AuditInputError(f"label column {shown(label)} has two classes; give the positive class's probability "
+                              "as one column: score=COLUMN (--score COLUMN)", setting="score")
     if cfg.positive is None:
         pos = _infer_positive(classes, label)
         inferred = True
@@ -276,13 +373,6 @@ def fit_outcomes(profile: OutcomeProfile, cfg) -> OutcomeSpec:
             raise AuditInputError(f"positive class {shown(cfg.positive)} does not occur in label column "
                                   f"{shown(label)} (classes: {classes[0]}, {classes[1]})", setting="positive")
     neg = classes[0] if classes[1] == pos else classes[1]
-    if cfg.pred is not None:
-        unknown = {k: v for k, v in profile.pred_first.items() if k not in classes}
-        if unknown:
-            value, row = min(unknown.items(), key=lambda kv: kv[1])
-            raise AuditInputError(f"prediction column {shown(cfg.pred)} has value {shown(value)} at {_row(row)}, "
-                                  f"which is not a class of label column {shown(label)} ({classes[0]}, {classes[1]})",
-                                  setting="pred")
     return OutcomeSpec(label=label, pred=cfg.pred, score=cfg.score, classes=(neg, pos), positive=pos,
                        positive_inferred=inferred, prediction_source="column" if cfg.pred is not None else "threshold",
                        threshold=cfg.threshold)

@@ -28,7 +28,7 @@ from ..errors import AuditInputError, shown
 from .auc import ExactAuc, hist_bins, score_histogram, slice_auc
 from .encoding import Encoding, choose_columns, fit_encoding, profile_column
 from .outcomes import (OutcomeSpec, check_columns, fit_outcomes, labelled_rows, need_columns, profile_outcomes)
-from .tally import Tally, plan_families, row_losses, tally, tally_numpy, use_compiled
+from .tally import Tally, class_losses, plan_families, row_losses, tally, tally_numpy, use_compiled
 
 #: Equal-width probability bins of the fairness module's calibration error.
 CALIBRATION_BINS = 10
@@ -53,8 +53,11 @@ class Source:
 
     info: SourceInfo
     chunked: bool = True
+    #: Rows the source holds when known before reading (Parquet metadata), for progress.
+    expected_rows: int | None = None
 
-    def chunks(self) -> Iterator[tuple[int, pd.DataFrame]]:  # pragma: no cover - interface
+    def chunks(self, columns: list[str] | None = None) -> Iterator[tuple[int, pd.DataFrame]]:  # pragma: no cover
+        """``(first data row, DataFrame)`` per chunk; ``columns`` may limit what is read (a hint)."""
         raise NotImplementedError
 
 
@@ -65,7 +68,7 @@ class FrameSource(Source):
         self.df = df
         self.info = info or SourceInfo(None, None, None)
 
-    def chunks(self):
+    def chunks(self, columns=None):
         yield 0, self.df
 
 
@@ -104,24 +107,55 @@ class ParquetSource(Source):
         self.chunk_rows = chunk_rows
         digest, size = _digest(self.files)
         self.info = SourceInfo(os.path.basename(path.rstrip("/")) or path, digest, size)
+        self.expected_rows = None
 
-    def chunks(self):
+    def parts(self) -> list[tuple[str, list[int], int, int]]:
+        """The table's row groups as ``(file, [row groups], first data row, rows)``, from the
+        files' footers only: the partitions a distributed run reads, one row group each."""
         import pyarrow.parquet as pq
 
-        offset = 0
+        out, offset = [], 0
         for f in self.files:
             try:
-                pf = pq.ParquetFile(f)
-                batches = pf.iter_batches(batch_size=self.chunk_rows)
-                for batch in batches:
-                    df = batch.to_pandas()
-                    yield offset, df
-                    offset += len(df)
-            except AuditInputError:
-                raise
-            except Exception as exc:  # pyarrow raises many types; ours is one line
+                meta = pq.ParquetFile(f).metadata
+            except Exception as exc:
                 raise AuditInputError(f"input file {shown(os.path.basename(f))} is not a readable Parquet file "
                                       f"({type(exc).__name__})") from None
+            for g in range(meta.num_row_groups):
+                n = meta.row_group(g).num_rows
+                out.append((f, [g], offset, n))
+                offset += n
+        self.expected_rows = offset
+        return out
+
+    def chunks(self, columns=None):
+        if self.expected_rows is None:
+            self.parts()
+        offset = 0
+        for f in self.files:
+            for df in read_parquet_part(f, None, self.chunk_rows, columns):
+                yield offset, df
+                offset += len(df)
+
+
+def read_parquet_part(f: str, row_groups: list[int] | None, chunk_rows: int,
+                      columns: list[str] | None = None) -> Iterator[pd.DataFrame]:
+    """Chunks of at most ``chunk_rows`` rows of one Parquet file (or of some of its row groups),
+    limited to ``columns`` (in the file's order) when given."""
+    import pyarrow.parquet as pq
+
+    try:
+        pf = pq.ParquetFile(f)
+        if columns is not None:
+            want = set(columns)
+            columns = [c for c in pf.schema_arrow.names if c in want]
+        for batch in pf.iter_batches(batch_size=chunk_rows, row_groups=row_groups, columns=columns):
+            yield batch.to_pandas()
+    except AuditInputError:
+        raise
+    except Exception as exc:  # pyarrow raises many types; ours is one line
+        raise AuditInputError(f"input file {shown(os.path.basename(f))} is not a readable Parquet file "
+                              f"({type(exc).__name__})") from None
 
 
 class CsvSource(Source):
@@ -141,16 +175,14 @@ class CsvSource(Source):
         return pd.read_csv(f, sep=sep, chunksize=self.chunk_rows, dtype=dtypes, encoding=self.encoding,
                            encoding_errors="strict", low_memory=False)
 
-    def chunks(self):
+    def chunks(self, columns=None):
         offset = 0
         try:
             if self._dtypes is None:
                 first = next(iter(self._reader(self.files[0])), None)
                 if first is None or len(first) == 0:
                     raise AuditInputError(f"input file {shown(os.path.basename(self.files[0]))} has no data rows")
-                self._dtypes = {c: ("float64" if pd.api.types.is_numeric_dtype(t) and not pd.api.types.is_bool_dtype(t)
-                                    else ("boolean" if pd.api.types.is_bool_dtype(t) else "str"))
-                                for c, t in first.dtypes.items()}
+                self._dtypes = csv_column_types(first)
             for f in self.files:
                 for df in self._reader(f, self._dtypes):
                     yield offset, df
@@ -168,6 +200,13 @@ class CsvSource(Source):
         except Exception as exc:
             raise AuditInputError(f"input file {shown(os.path.basename(f))} is not readable CSV "
                                   f"({type(exc).__name__})") from None
+
+
+def csv_column_types(first: pd.DataFrame) -> dict[str, str]:
+    """Column types read from a CSV file's first block, held for every later block or part."""
+    return {c: ("float64" if pd.api.types.is_numeric_dtype(t) and not pd.api.types.is_bool_dtype(t)
+                else ("boolean" if pd.api.types.is_bool_dtype(t) else "str"))
+            for c, t in first.dtypes.items()}
 
 
 def open_source(data, *, chunk_rows: int | None, encoding: str | None = None) -> Source:
@@ -231,7 +270,51 @@ def fit(source: Source, cfg, *, progress: Progress | None = None, keep: dict | N
     ``keep`` (a dict) receives the single chunk of a DataFrame source and its caches, so the
     in-memory run encodes and tallies without reading the table twice.
     """
+    return fit_evidence(profile_source(source, cfg, progress=progress, keep=keep), cfg)
+
+
+@dataclass
+class Evidence:
+    """What the first pass learned from some rows: the table's columns, the attributes chosen,
+    the outcome and column profiles, the score histogram (for the fairness median) and the
+    unlabelled rows left out. ``a + b`` is the evidence of a's rows followed by b's (the order
+    matters: numeric columns keep their first values for bin edges), so parts of a table
+    profiled on different workers merge into what one pass over the table would learn."""
+
+    columns: list[str] | None
+    attributes: list[str] | None
+    outcomes: Any = None
+    profiles: list | None = None
+    hist: np.ndarray | None = None
+    n_unlabelled: int = 0
+    chunked: bool = True
+
+    def __add__(self, other: "Evidence") -> "Evidence":
+        if self.columns is None:
+            return Evidence(other.columns, other.attributes, other.outcomes, other.profiles, other.hist,
+                            self.n_unlabelled + other.n_unlabelled, self.chunked and other.chunked)
+        if other.columns is None:
+            return Evidence(self.columns, self.attributes, self.outcomes, self.profiles, self.hist,
+                            self.n_unlabelled + other.n_unlabelled, self.chunked and other.chunked)
+        if list(self.columns) != list(other.columns):
+            raise AuditInputError("parts of the table have different columns "
+                                  f"({', '.join(map(shown, self.columns[:6]))} and "
+                                  f"{', '.join(map(shown, other.columns[:6]))})")
+
+        def add(a, b):
+            return b if a is None else (a if b is None else a + b)
+
+        profiles = other.profiles if self.profiles is None else (
+            self.profiles if other.profiles is None else [a + b for a, b in zip(self.profiles, other.profiles)])
+        return Evidence(self.columns, self.attributes, add(self.outcomes, other.outcomes), profiles,
+                        add(self.hist, other.hist), self.n_unlabelled + other.n_unlabelled,
+                        self.chunked and other.chunked)
+
+
+def profile_source(source: Source, cfg, *, progress: Progress | None = None, keep: dict | None = None) -> Evidence:
+    """The first pass over a source (or over one part of a table): checks and profiles, no fitting."""
     note = progress or (lambda stage, frac: None)
+    source_columns = None
     prof_out = None
     profiles = None
     cols: list[str] | None = None
@@ -241,7 +324,9 @@ def fit(source: Source, cfg, *, progress: Progress | None = None, keep: dict | N
         if cols is None:
             check_columns(df)
             need_columns(df.columns, cfg)
-            reserved = [c for c in (cfg.label, cfg.pred, cfg.score) if c is not None]
+            from .outcomes import _score_columns
+
+            reserved = [c for c in (cfg.label, cfg.pred) if c is not None] + _score_columns(cfg)
             cols = choose_columns(df.columns, cfg.attributes, reserved=reserved)
             if cfg.protected:
                 for p in cfg.protected:
@@ -270,13 +355,25 @@ def fit(source: Source, cfg, *, progress: Progress | None = None, keep: dict | N
         pc = [profile_column(df[c], c, as_text=c in cfg.categorical, cache=acache, compiled=compiled) for c in cols]
         prof_out = po if prof_out is None else prof_out + po
         profiles = pc if profiles is None else [a + b for a, b in zip(profiles, pc)]
-        if cfg.score is not None and cfg.protected and source.chunked:
+        if "score" in ocache and cfg.protected and source.chunked:
             b = np.minimum((ocache["score"] * MEDIAN_BINS).astype(np.int64), MEDIAN_BINS - 1)
             h = np.bincount(b, minlength=MEDIAN_BINS)
             hist = h if hist is None else hist + h
         if keep is not None and not source.chunked:
             keep.update(df=df, outcomes=ocache, attributes=acache)
-        note("reading and checking", 0.05)
+        note("reading and checking", _share(source, offset + len(df)))
+    return Evidence(source_columns, cols, prof_out, profiles, hist, n_unlabelled, source.chunked)
+
+
+def _share(source: Source, rows_done: int) -> float:
+    """Progress through a pass, 0..1 (rows done over the rows expected; 1 when not known)."""
+    expected = getattr(source, "expected_rows", None)
+    return min(1.0, rows_done / expected) if expected else 1.0
+
+
+def fit_evidence(ev: Evidence, cfg) -> Fitted:
+    """Fit the outcome classes and the attribute encoding from the first pass's evidence."""
+    cols, prof_out, profiles, hist, n_unlabelled = ev.attributes, ev.outcomes, ev.profiles, ev.hist, ev.n_unlabelled
     if cols is None or prof_out is None:
         raise AuditInputError("the table has no rows" if not n_unlabelled else "the table has no labelled rows")
     prof_out.n_unlabelled = n_unlabelled
@@ -284,7 +381,7 @@ def fit(source: Source, cfg, *, progress: Progress | None = None, keep: dict | N
     enc = fit_encoding(profiles, n_bins=cfg.bins, bin_edges=cfg.bin_edges, max_levels=cfg.max_levels,
                        categorical=cfg.categorical, numeric=cfg.numeric)
     if not enc.attributes:
-        why = "; ".join(f"{k}: {v}" for k, v in enc.skipped.items()) or "the table has no other columns"
+        why = "; ".join(f"{shown(k)[1:-1]}: {v}" for k, v in enc.skipped.items()) or "the table has no other columns"
         raise AuditInputError(f"no attribute column left to slice by ({why})", setting="attributes")
     names = enc.names
     protected = []
@@ -293,13 +390,44 @@ def fit(source: Source, cfg, *, progress: Progress | None = None, keep: dict | N
             raise AuditInputError(f"protected attribute {shown(p)} is not among the audited attributes "
                                   f"({enc.skipped.get(p, 'not sliced')})", setting="protected")
         protected.append(names.index(p))
+    check_metric(cfg, spec)
     _check_fairness_settings(cfg, spec, enc)
     fitted = Fitted(spec, enc, plan_families(len(names), cfg.max_order), protected, prof_out.n_rows, n_unlabelled,
-                    source.chunked)
+                    ev.chunked)
     if hist is not None:
         fitted.score_hist = hist
         fitted.median_bins = _order_stat_bins(hist, prof_out.n_rows)
     return fitted
+
+
+#: Metrics a multi-class audit can be audited on (besides ``NAME:CLASS`` per-class rates).
+MULTICLASS_METRICS = ("error_rate", "accuracy", "macro_f1", "log_loss", "brier")
+
+
+def check_metric(cfg, spec: OutcomeSpec) -> None:
+    """The audited metric exists for this many classes (and names one of them, if per class)."""
+    from ..stats.methods import METRICS
+
+    k = spec.n_classes
+    name = cfg.metric
+    if k == 2:
+        if name not in METRICS:
+            raise AuditInputError(f"metric {shown(name)} is for labels with three or more classes; choose one of "
+                                  f"{', '.join(METRICS)}", setting="metric")
+        return
+    base, sep, cls = name.partition(":")
+    if sep:
+        if cls not in spec.classes:
+            raise AuditInputError(f"metric {shown(name)} names class {shown(cls)}, which is not a class of label "
+                                  f"column {shown(spec.label)} ({', '.join(spec.classes[:8])})", setting="metric")
+        return
+    if name not in MULTICLASS_METRICS:
+        raise AuditInputError(f"metric {shown(name)} is for two classes; with {k} classes choose one of "
+                              f"{', '.join(MULTICLASS_METRICS)}, or recall:CLASS, precision:CLASS, f1:CLASS",
+                              setting="metric")
+    if name in ("log_loss", "brier") and spec.probs is None:
+        raise AuditInputError(f"metric '{name}' needs the class probabilities (score={{class: column}})",
+                              setting="metric")
 
 
 def _check_fairness_settings(cfg, spec: OutcomeSpec, enc: Encoding) -> None:
@@ -308,9 +436,14 @@ def _check_fairness_settings(cfg, spec: OutcomeSpec, enc: Encoding) -> None:
         return
     from .outcomes import _match_class
 
-    if cfg.favorable is not None and _match_class(cfg.favorable, spec.classes) is None:
-        raise AuditInputError(f"favourable outcome {shown(cfg.favorable)} is not a class of the label "
-                              f"({', '.join(spec.classes)})", setting="favorable")
+    favs = cfg.favorable if isinstance(cfg.favorable, tuple) else ((cfg.favorable,) if cfg.favorable else ())
+    for f in favs:
+        if _match_class(f, spec.classes) is None:
+            raise AuditInputError(f"favourable outcome {shown(f)} is not a class of the label "
+                                  f"({', '.join(spec.classes)})", setting="favorable")
+    if spec.n_classes > 2 and not favs:
+        raise AuditInputError("with three or more classes, say which predicted class (or classes) is favourable to "
+                              "the person: favorable=... (--favorable CLASS[,CLASS])", setting="favorable")
     by_name = {a.name: a for a in enc.attributes}
     labels = {p: by_name[p].levels for p in cfg.protected}
     prot = list(cfg.protected)
@@ -352,6 +485,8 @@ def tally_chunk(df: pd.DataFrame, fitted: Fitted, cfg, *, offset: int = 0, cache
     ll = br = None
     if out.score is not None:
         ll, br = row_losses(out.y, out.score, compiled=compiled and n > 100_000)
+    elif out.probs is not None:
+        ll, br = class_losses(out.y, out.probs)
     t = tally(codes, cards, cell, ll, br, families=fitted.families, n_classes=k,
               kernel="compiled" if compiled else "numpy")
     if out.score is not None and cfg.auc_max_order >= 0:
@@ -451,14 +586,29 @@ def tally_source(source: Source, fitted: Fitted, cfg, *, keep: dict | None = Non
     if keep and "df" in keep:
         return tally_chunk(keep["df"], fitted, cfg, caches=keep, kernel=kernel)
     total = None
-    for offset, df in source.chunks():
-        if len(df) == 0:
-            continue
-        rows = labelled_rows(df, cfg, offset=offset)
-        if rows is not None:
-            df = df[rows]
-        t = tally_chunk(df, fitted, cfg, offset=offset, kernel=kernel)
-        total = t if total is None else total + t
-        note("counting slices", 0.1 + 0.5 * min(1.0, (offset + len(df)) / max(fitted.n_rows, 1)))
+    n_all = max(fitted.n_rows + fitted.n_unlabelled, 1)
+    for offset, df in source.chunks(columns=needed_columns(fitted, cfg)):
+        t = tally_part(df, fitted, cfg, offset=offset, kernel=kernel)
+        if t is not None:
+            total = t if total is None else total + t
+        note("counting slices", min(1.0, (offset + len(df)) / n_all))
     total.n_unlabelled = fitted.n_unlabelled
     return total
+
+
+def tally_part(df: pd.DataFrame, fitted: Fitted, cfg, *, offset: int = 0, kernel: str = "auto") -> Tally | None:
+    """One chunk of the second pass: unlabelled rows left out (the first pass counted them), the
+    rest tallied; ``None`` for a chunk with no rows."""
+    if len(df) == 0:
+        return None
+    rows = labelled_rows(df, cfg, offset=offset)
+    if rows is not None:
+        df = df[rows]
+    return tally_chunk(df, fitted, cfg, offset=offset, kernel=kernel)
+
+
+def needed_columns(fitted: Fitted, cfg) -> list[str]:
+    """The columns the second pass reads: the outcome columns and the fitted attributes."""
+    scores = [cfg.score] if isinstance(cfg.score, str) else list((cfg.score or {}).values())
+    outcome = [c for c in (cfg.label, cfg.pred) if c is not None] + scores
+    return list(dict.fromkeys(outcome + list(fitted.encoding.names)))

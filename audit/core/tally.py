@@ -69,6 +69,16 @@ def row_losses(y: np.ndarray, score: np.ndarray, *, compiled: bool | None = None
     return ll, br
 
 
+def class_losses(y: np.ndarray, probs: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Per-row multi-class log loss, -ln p(true class) (clipped at ``EPS``), and multi-class Brier
+    score, Σ_c (p_c − [y = c])², for class indices ``y`` and a (rows × classes) probability matrix."""
+    rows = np.arange(len(y))
+    p_true = probs[rows, y.astype(np.intp)]
+    ll = -np.log(np.clip(p_true, EPS, 1.0 - EPS))
+    br = (probs * probs).sum(axis=1) - 2.0 * p_true + 1.0
+    return ll, br
+
+
 def small_histogram(codes: np.ndarray, size: int, *, compiled: bool = False) -> np.ndarray:
     """Counts of each value of a small unsigned integer array."""
     if compiled:
@@ -98,10 +108,16 @@ class Tally:
     groups: "Tally | None" = None
     n_unlabelled: int = 0
     extra: dict = field(default_factory=dict)
+    #: Families stored sparsely (the triples kept after pruning): family index -> the kept
+    #: slices' positions in the family's full mixed-radix layout, increasing. Others are dense.
+    slots: dict = field(default_factory=dict)
+    #: What the triple plan considered, pruned and kept (see :func:`plan_triples`).
+    pruning: dict = field(default_factory=dict)
 
     def __add__(self, other: "Tally") -> "Tally":
         if (self.families != other.families or self.shapes != other.shapes or self.n_classes != other.n_classes
-                or self.sum_names != other.sum_names):
+                or self.sum_names != other.sum_names or self.slots.keys() != other.slots.keys()
+                or any(not np.array_equal(v, other.slots[k]) for k, v in self.slots.items())):
             raise ValueError("tallies cover different slice families; encode every chunk with the same encoding")
         auc = None
         if self.auc is not None or other.auc is not None:
@@ -115,11 +131,31 @@ class Tally:
             groups = self.groups + other.groups
         extra = {k: self.extra.get(k, 0) + other.extra.get(k, 0) for k in set(self.extra) | set(other.extra)}
         return Tally(self.families, self.shapes, self.offsets, self.counts + other.counts, self.sums + other.sums,
-                     self.n_classes, self.sum_names, auc, groups, self.n_unlabelled + other.n_unlabelled, extra)
+                     self.n_classes, self.sum_names, auc, groups, self.n_unlabelled + other.n_unlabelled, extra,
+                     self.slots, self.pruning)
 
     def family(self, k: int) -> tuple[np.ndarray, np.ndarray]:
         a, b = self.offsets[k], self.offsets[k + 1]
         return self.counts[a:b], self.sums[a:b]
+
+    def positions(self, k: int) -> np.ndarray:
+        """Each stored slice's position in family ``k``'s full mixed-radix layout."""
+        if k in self.slots:
+            return self.slots[k]
+        return np.arange(int(self.offsets[k + 1] - self.offsets[k]))
+
+    def joined(self, more: "Tally") -> "Tally":
+        """This tally with ``more``'s families appended (same rows, same sums)."""
+        if more.sum_names != self.sum_names or more.n_classes != self.n_classes:
+            raise ValueError("tallies of the same rows carry the same sums")
+        k0 = len(self.families)
+        offsets = np.concatenate([self.offsets[:-1], self.offsets[-1] + more.offsets]).astype(np.int64)
+        slots = dict(self.slots)
+        slots.update({k0 + k: v for k, v in more.slots.items()})
+        return Tally(self.families + more.families, self.shapes + more.shapes, offsets,
+                     np.concatenate([self.counts, more.counts]), np.concatenate([self.sums, more.sums]),
+                     self.n_classes, self.sum_names, self.auc, self.groups, self.n_unlabelled, dict(self.extra),
+                     slots, {**self.pruning, **more.pruning})
 
     @property
     def n_rows(self) -> int:
@@ -136,6 +172,9 @@ def plan_families(n_attributes: int, max_order: int) -> list[tuple[int, ...]]:
         fams += [(i,) for i in range(n_attributes)]
     if max_order >= 2:
         fams += [(i, j) for i in range(n_attributes) for j in range(i + 1, n_attributes)]
+    if max_order >= 3:
+        fams += [(i, j, k) for i in range(n_attributes) for j in range(i + 1, n_attributes)
+                 for k in range(j + 1, n_attributes)]
     return fams
 
 
@@ -334,3 +373,155 @@ def _run_group_kernel(codes, cards, cell, ll, br, groups, gcards, gpairs, n_clas
     c8 = cell.astype(np.int8, copy=False)
     acc = _binary_kernel(gt, c8, ll, br, ga, gb, gcb, goffsets[:-1].copy(), total, nth, KERNEL_BLOCK)
     return acc.sum(axis=0).reshape(total, kk + 4)
+
+
+# ----------------------------------------------------------------------------- triples
+@dataclass(frozen=True)
+class TriplePlan:
+    """Which triples of values (from three different attributes) to count.
+
+    A triple is kept when each of its three parent pairs has at least ``min_rows`` rows: a
+    triple has no more rows than any of its parent pairs, so every pruned triple would have
+    been below support and untested. Pruning looks at row counts only, never at outcomes, so
+    the tested slices and the correction family are those of the full enumeration.
+
+    Per family: ``rowmaps[f]`` maps each (first, second) value cell to a row of ``luts[f]``
+    (-1: that pair is too small), ``luts[f][row, third value]`` is the triple's slot in the
+    family (-1: pruned), ``kept[f]`` the kept triples' positions in the full layout.
+    """
+
+    families: tuple[tuple[int, int, int], ...]
+    shapes: tuple[tuple[int, int, int], ...]
+    rowmaps: tuple[np.ndarray, ...]
+    luts: tuple[np.ndarray, ...]
+    kept: tuple[np.ndarray, ...]
+    min_rows: int
+
+    @property
+    def possible(self) -> int:
+        return int(sum(math.prod(s) for s in self.shapes))
+
+    @property
+    def n_kept(self) -> int:
+        return int(sum(len(k) for k in self.kept))
+
+    def summary(self) -> dict[str, int]:
+        return {"families": len(self.families), "possible": self.possible, "kept": self.n_kept,
+                "pruned": self.possible - self.n_kept, "min_rows": self.min_rows}
+
+
+def plan_triples(pairs: Tally, cards, *, min_rows: int, attributes=None) -> TriplePlan:
+    """The triples under pairs with at least ``min_rows`` rows (``pairs`` holds every pair family
+    of ``attributes``, default all)."""
+    attrs = list(range(len(cards))) if attributes is None else list(attributes)
+    where = {f: q for q, f in enumerate(pairs.families) if len(f) == 2}
+    ok = {}
+    for f, q in where.items():
+        c = pairs.family(q)[0].sum(axis=1)
+        full = np.zeros(cards[f[0]] * cards[f[1]], dtype=bool)
+        full[pairs.positions(q)] = c >= min_rows
+        ok[f] = full.reshape(cards[f[0]], cards[f[1]])
+    fams, shapes, rowmaps, luts, kept = [], [], [], [], []
+    for x in range(len(attrs)):
+        for y in range(x + 1, len(attrs)):
+            for z in range(y + 1, len(attrs)):
+                i, j, k = attrs[x], attrs[y], attrs[z]
+                ci, cj, ck = cards[i], cards[j], cards[k]
+                a, b = np.nonzero(ok[(i, j)])  # row-major: increasing a*cj + b
+                m = ok[(i, k)][a] & ok[(j, k)][b]
+                rowmap = np.full(ci * cj, -1, dtype=np.int32)
+                rowmap[a * cj + b] = np.arange(len(a), dtype=np.int32)
+                lut = np.full(m.shape, -1, dtype=np.int32)
+                lut[m] = np.arange(int(m.sum()), dtype=np.int32)
+                fams.append((i, j, k))
+                shapes.append((ci, cj, ck))
+                rowmaps.append(rowmap)
+                luts.append(lut.reshape(len(a), ck))
+                kept.append((((a * cj + b)[:, None] * ck) + np.arange(ck)[None, :])[m].astype(np.int64))
+    return TriplePlan(tuple(fams), tuple(shapes), tuple(rowmaps), tuple(luts), tuple(kept), min_rows)
+
+
+def _triple_slots(plan: TriplePlan, f: int, codes) -> np.ndarray:
+    """Each row's slot in triple family ``f`` (-1 when its triple is pruned)."""
+    i, j, k = plan.families[f]
+    cj = plan.shapes[f][1]
+    r = plan.rowmaps[f][codes[i].astype(np.int64) * cj + codes[j]]
+    lut = plan.luts[f]
+    if lut.shape[0] == 0:
+        return np.full(len(r), -1, dtype=np.int64)
+    s = lut[np.maximum(r, 0), codes[k]].astype(np.int64)
+    s[r < 0] = -1
+    return s
+
+
+def tally_triples(codes, cards, cell, ll=None, br=None, *, plan: TriplePlan, n_classes: int = 2,
+                  sum_names: tuple[str, ...] | None = None, kernel: str = "auto") -> Tally:
+    """Tally the kept triples of ``plan``; families stored sparsely (``Tally.slots``).
+
+    ``sum_names`` are the sums to carry (default: the binary losses when ``ll`` is given), so
+    the result can be joined to the pairs' tally of the same rows.
+    """
+    kk = n_classes * n_classes
+    if sum_names is None:
+        sum_names = LOSS_SUMS if ll is not None else ()
+    sizes = [len(k) for k in plan.kept]
+    offsets = np.concatenate([[0], np.cumsum(sizes)]).astype(np.int64)
+    total = int(offsets[-1])
+    slots = {f: plan.kept[f] for f in range(len(plan.families))}
+    pruning = {"triples": plan.summary()}
+    fams = plan.families
+    if (n_classes == 2 and total and use_compiled(len(cell), len(fams), kernel)
+            and sum_names in (LOSS_SUMS, ())):
+        acc = _run_triple_kernel(codes, cell, ll, br, plan, offsets)
+        counts = np.rint(acc[:, :kk]).astype(np.int64)
+        sums = np.ascontiguousarray(acc[:, kk:]) if sum_names else np.zeros((total, 0))
+        return Tally(fams, plan.shapes, offsets, counts, sums, n_classes, tuple(sum_names), slots=slots,
+                     pruning=pruning)
+    weights = dict(zip(LOSS_SUMS, (ll, ll * ll, br, br * br))) if sum_names == LOSS_SUMS and ll is not None else {}
+    if tuple(weights) != tuple(sum_names):
+        raise ValueError("triples carry the binary loss sums or none")
+    counts = np.zeros((total, kk), dtype=np.int64)
+    sums = np.zeros((total, len(sum_names)), dtype=np.float64)
+    cell = np.asarray(cell).astype(np.int64)
+    for f in range(len(fams)):
+        size = sizes[f]
+        if not size:
+            continue
+        s = _triple_slots(plan, f, codes)
+        keep = s >= 0
+        sk = s[keep]
+        lo, hi = offsets[f], offsets[f + 1]
+        counts[lo:hi] = np.bincount(sk * kk + cell[keep], minlength=size * kk).reshape(size, kk)
+        for w, name in enumerate(sum_names):
+            sums[lo:hi, w] = np.bincount(sk, weights=weights[name][keep], minlength=size)
+    return Tally(fams, plan.shapes, offsets, counts, sums, n_classes, tuple(sum_names), slots=slots, pruning=pruning)
+
+
+def _run_triple_kernel(codes, cell, ll, br, plan: TriplePlan, offsets) -> np.ndarray:
+    """One pass over the rows for every kept triple; (kept triples × (4 + 4)) records."""
+    import numba
+
+    from .kernels import _triple_kernel
+
+    n = len(cell)
+    if ll is None:
+        ll = br = np.zeros(n)
+    mx = max(int(np.max(c)) if len(c) else 0 for c in codes)
+    cdt = np.uint8 if mx < 256 else (np.uint16 if mx < 65536 else np.int64)
+    cm = np.empty((len(codes), n), dtype=cdt)
+    for a, c in enumerate(codes):
+        np.copyto(cm[a], c, casting="unsafe")
+    fi = np.array([f[0] for f in plan.families], dtype=np.int64)
+    fj = np.array([f[1] for f in plan.families], dtype=np.int64)
+    fk = np.array([f[2] for f in plan.families], dtype=np.int64)
+    cj = np.array([s[1] for s in plan.shapes], dtype=np.int64)
+    ck = np.array([s[2] for s in plan.shapes], dtype=np.int64)
+    rm_off = np.concatenate([[0], np.cumsum([len(r) for r in plan.rowmaps])]).astype(np.int64)
+    lut_off = np.concatenate([[0], np.cumsum([lt.size for lt in plan.luts])]).astype(np.int64)
+    rowmap = np.concatenate(plan.rowmaps).astype(np.int32)
+    lut = np.concatenate([lt.reshape(-1) for lt in plan.luts]).astype(np.int32)
+    total = int(offsets[-1])
+    nth = max(1, min(numba.get_num_threads(), 1 + n // 50_000))
+    acc = _triple_kernel(cm, cell.astype(np.int8, copy=False), ll, br, fi, fj, fk, cj, ck, rm_off, rowmap,
+                         lut_off, lut, offsets[:-1].copy(), total, nth, KERNEL_BLOCK)
+    return acc.sum(axis=0).reshape(total, 8)

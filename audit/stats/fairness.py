@@ -102,14 +102,17 @@ def assess(groups, fitted, cfg, *, scoring=None) -> FairnessResult:
     protected = list(cfg.protected or ())
     classes = fitted.outcomes.classes
     k_cls = len(classes)
-    if cfg.favorable is None:
-        fav_idx = 1
-    else:
-        from ..core.outcomes import _match_class
+    from ..core.outcomes import _match_class
 
-        fav_idx = classes.index(_match_class(cfg.favorable, classes))
-    fav_pos = fav_idx == 1
-    favorable = classes[fav_idx]
+    favs = () if cfg.favorable is None else (cfg.favorable if isinstance(cfg.favorable, tuple) else (cfg.favorable,))
+    fav_set = [classes.index(_match_class(f, classes)) for f in favs] or [1]
+    fav_idx = fav_set[0]
+    fav_pos = fav_set == [1] and k_cls == 2
+    favorable = " or ".join(classes[i] for i in fav_set)
+    # Two classes: the criteria use the positive class. Three or more: one-vs-rest for the
+    # favourable set F (a row is "positive" when its class is in F).
+    in_f = np.zeros(k_cls, dtype=bool)
+    in_f[fav_set] = True
     has_score = "score" in groups.sum_names
     sums = groups.named_sums()
     n_total = int(groups.family(0)[0].sum())
@@ -129,12 +132,16 @@ def assess(groups, fitted, cfg, *, scoring=None) -> FairnessResult:
             by_bin = cells.reshape(k, CALIBRATION_BINS, k_cls * k_cls)
             cells = by_bin.sum(axis=1)
         cube = cells.reshape(k, k_cls, k_cls)  # [group, true class, predicted class]
-        tp = cube[:, 1, 1].astype(np.int64)
-        fp = cube[:, 0, 1].astype(np.int64)
-        fn = cube[:, 1, 0].astype(np.int64)
-        tn = cube[:, 0, 0].astype(np.int64)
+        if k_cls == 2:
+            tp, fp, fn, tn = (cube[:, i, j].astype(np.int64) for i, j in ((1, 1), (0, 1), (1, 0), (0, 0)))
+            sel = cube[:, :, fav_idx].sum(axis=1).astype(np.int64)
+        else:
+            tp = cube[:, in_f][:, :, in_f].sum(axis=(1, 2)).astype(np.int64)
+            fp = cube[:, ~in_f][:, :, in_f].sum(axis=(1, 2)).astype(np.int64)
+            fn = cube[:, in_f][:, :, ~in_f].sum(axis=(1, 2)).astype(np.int64)
+            tn = cube[:, ~in_f][:, :, ~in_f].sum(axis=(1, 2)).astype(np.int64)
+            sel = tp + fp
         n = cube.sum(axis=(1, 2)).astype(np.int64)
-        sel = cube[:, :, fav_idx].sum(axis=1).astype(np.int64)
         df = pd.DataFrame({"attribute": label, "group": levels, "n": n})
         keep = n > 0
         df = df[keep].reset_index(drop=True)

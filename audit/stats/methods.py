@@ -53,6 +53,31 @@ METRICS: dict[str, Metric] = {m.name: m for m in [
     _m("brier", "Brier score", "mean", True, None, "n", "(1/n) Σ (p - y)²", True),
 ]}
 
+#: Metrics of a multi-class audit besides error rate, log loss and Brier score.
+MULTICLASS_ONLY: dict[str, Metric] = {
+    "macro_f1": Metric("macro_f1", "macro-averaged F1", "macro_f1", False, None, "n",
+                       "mean over the classes present in the slice of 2 tp_c / (2 tp_c + fp_c + fn_c)"),
+}
+#: Per-class rates of a multi-class audit, written ``NAME:CLASS`` (``recall:refer``).
+CLASS_METRICS = {"recall": ("tp", "actual", "recall (true-positive rate) of class"),
+                 "precision": ("tp", "pred", "precision of class"),
+                 "f1": ("tp", "tp_fp_fn", "F1 of class")}
+
+
+def metric_for(name: str) -> Metric:
+    """The registry entry of an audited metric, including ``NAME:CLASS`` per-class rates."""
+    if name in METRICS:
+        return METRICS[name]
+    if name in MULTICLASS_ONLY:
+        return MULTICLASS_ONLY[name]
+    base, _, cls = name.partition(":")
+    num, den, title = CLASS_METRICS[base]
+    formula = {"recall": "tp_c / (rows of true class c)", "precision": "tp_c / (rows predicted c)",
+               "f1": "2 tp_c / (2 tp_c + fp_c + fn_c)"}[base]
+    return Metric(name, f"{title} '{cls}'", "f1" if base == "f1" else "rate", False, f"{num}:{cls}",
+                  f"{den}:{cls}", formula)
+
+
 #: Every rate reported (with an interval) for every slice, in output order: name -> (numerator,
 #: denominator), both named counts of ``measure.count_frame``.
 RATES: dict[str, tuple[str, str]] = {
@@ -71,11 +96,18 @@ EXTRA_FORMULAS = {
     "roc_auc": "P(score of a positive > score of a negative) + ½ P(tie), within the slice",
 }
 
+class _Words(dict):
+    def __missing__(self, key: str) -> str:
+        base, _, cls = str(key).partition(":")
+        return {"actual": f"rows of true class '{cls}'", "pred": f"rows predicted '{cls}'",
+                "tp_fp_fn": f"rows of class '{cls}' in truth or prediction"}.get(base, str(key))
+
+
 #: Plain words for the named counts a metric's support is measured in.
-COUNT_WORDS = {"n": "rows", "actual_pos": "actual positives", "actual_neg": "actual negatives",
+COUNT_WORDS = _Words({"n": "rows", "actual_pos": "actual positives", "actual_neg": "actual negatives",
                "pred_pos": "predicted positives", "pred_neg": "predicted negatives",
                "tp_fp_fn": "rows positive in truth or prediction", "errors": "errors", "correct": "correct rows",
-               "tp": "true positives", "fp": "false positives", "fn": "false negatives", "tn": "true negatives"}
+               "tp": "true positives", "fp": "false positives", "fn": "false negatives", "tn": "true negatives"})
 
 
 @dataclass(frozen=True)

@@ -51,7 +51,9 @@ class AuditResult:
 
     @property
     def metric(self):
-        return METRICS[self.config.metric]
+        from .methods import metric_for
+
+        return metric_for(self.config.metric)
 
     def tested(self) -> pd.DataFrame:
         return self.slices[self.slices["status"] == "tested"]

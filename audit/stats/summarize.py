@@ -20,7 +20,7 @@ from .compare import cohens_d, cohens_h, two_proportion, welch_p
 from .correct import adjust
 from .intervals import f1_interval, mean_interval, mover_difference, proportion_interval, welch_difference
 from .measure import METRICS, RATE_COLUMNS, RATES, count_frame, metric_values
-from .methods import COUNT_WORDS
+from .methods import COUNT_WORDS, metric_for
 from .rank import flag_and_rank
 from .result import ALL, AuditResult
 
@@ -81,6 +81,35 @@ def _metric_block(cfg: AuditConfig, c: dict, rc: dict, v: dict, rv: dict, sums, 
             "p_value": p, "test": test, "_support": support, "_rsupport": rsupport, "_eff_name": eff_name}
 
 
+def _binary_columns(counts, rest, sums, rsums, auc, cfg, n_rows) -> dict[str, Any]:
+    """Counts, every rate with its interval, F1, Jaccard, losses and ROC AUC of each slice (two classes)."""
+    c, v = count_frame(counts), None
+    v = metric_values(c, sums)
+    lvl, meth = cfg.level, cfg.interval
+    cols: dict[str, Any] = {
+        "n": c["n"], "share": c["n"] / n_rows,
+        "actual_pos": c["actual_pos"], "pred_pos": c["pred_pos"],
+        "tp": c["tp"], "fp": c["fp"], "fn": c["fn"], "tn": c["tn"], "errors": c["errors"],
+    }
+    for r, (num, den) in RATES.items():
+        cols[r] = v[r]
+        cols[f"{r}_low"], cols[f"{r}_high"] = proportion_interval(c[num], c[den], method=meth, level=lvl)
+    cols["f1"] = v["f1"]
+    cols["f1_low"], cols["f1_high"] = f1_interval(c["tp"], c["fp"], c["fn"], method=meth, level=lvl)
+    cols["f1_neg"], cols["macro_f1"], cols["jaccard"] = v["f1_neg"], v["macro_f1"], v["jaccard"]
+    cols["jaccard_low"], cols["jaccard_high"] = proportion_interval(c["tp"], c["tp_fp_fn"], method=meth, level=lvl)
+    cols["log_loss"], cols["brier"] = v["log_loss"], v["brier"]
+    if sums is not None:
+        cols["log_loss_low"], cols["log_loss_high"] = mean_interval(c["n"], sums[:, 0], sums[:, 1], level=lvl)
+        cols["brier_low"], cols["brier_high"] = mean_interval(c["n"], sums[:, 2], sums[:, 3], level=lvl)
+    else:
+        for k in ("log_loss_low", "log_loss_high", "brier_low", "brier_high"):
+            cols[k] = np.full(len(counts), np.nan)
+    cols["roc_auc"] = auc
+
+    return cols
+
+
 def restated_outcomes(tl: Tally, fitted: Fitted) -> dict[int, str]:
     """Attributes whose values restate the label or the prediction (each value goes with one
     class, different values with different classes): slicing by them audits the outcome itself."""
@@ -119,7 +148,8 @@ def summarize(tl: Tally, fitted: Fitted, cfg: AuditConfig, *, source: SourceInfo
         skipped[attrs[i].name] = why
     keep_fam = [q for q, f in enumerate(families) if not any(a in restated for a in f)]
     rows = np.concatenate([np.arange(tl.offsets[q], tl.offsets[q + 1]) for q in keep_fam])
-    has_score = fitted.outcomes.score is not None
+    has_score = fitted.outcomes.has_probabilities
+    k_cls = fitted.outcomes.n_classes
     counts = tl.counts[rows]
     sums = tl.sums[rows] if has_score else None
     order = np.concatenate([np.full(tl.offsets[q + 1] - tl.offsets[q], len(families[q])) for q in keep_fam])
@@ -138,49 +168,32 @@ def summarize(tl: Tally, fitted: Fitted, cfg: AuditConfig, *, source: SourceInfo
     for q in keep_fam:
         nm, x1, y1, x2, y2 = _names(families[q], attrs)
         names += nm; a1 += x1; v1 += y1; a2 += x2; v2 += y2
-    c = count_frame(counts)
-    keep = (c["n"] > 0) | (order == 0)
+    keep = (counts.sum(axis=1) > 0) | (order == 0)
     idx = np.flatnonzero(keep)
     counts, order, auc = counts[idx], order[idx], auc[idx]
     if sums is not None:
         sums = sums[idx]
-    c = {k: val[idx] for k, val in c.items()}
-    whole_counts = counts[order == 0][0]
-    rest = whole_counts[None, :] - counts
-    rc = count_frame(rest)
+    rest = counts[order == 0][0][None, :] - counts
     rsums = None if sums is None else sums[order == 0][0][None, :] - sums
-    v = metric_values(c, sums)
-    rv = metric_values(rc, rsums)
-    lvl, meth = cfg.level, cfg.interval
-
+    m = metric_for(cfg.metric)
     cols: dict[str, Any] = {
         "slice": np.asarray(names, dtype=object)[idx], "order": order,
         "attribute_1": np.asarray(a1, dtype=object)[idx], "value_1": np.asarray(v1, dtype=object)[idx],
         "attribute_2": np.asarray(a2, dtype=object)[idx], "value_2": np.asarray(v2, dtype=object)[idx],
-        "n": c["n"], "share": c["n"] / n_rows,
-        "actual_pos": c["actual_pos"], "pred_pos": c["pred_pos"],
-        "tp": c["tp"], "fp": c["fp"], "fn": c["fn"], "tn": c["tn"], "errors": c["errors"],
     }
-    for r, (num, den) in RATES.items():
-        cols[r] = v[r]
-        cols[f"{r}_low"], cols[f"{r}_high"] = proportion_interval(c[num], c[den], method=meth, level=lvl)
-    cols["f1"] = v["f1"]
-    cols["f1_low"], cols["f1_high"] = f1_interval(c["tp"], c["fp"], c["fn"], method=meth, level=lvl)
-    cols["f1_neg"], cols["macro_f1"], cols["jaccard"] = v["f1_neg"], v["macro_f1"], v["jaccard"]
-    cols["jaccard_low"], cols["jaccard_high"] = proportion_interval(c["tp"], c["tp_fp_fn"], method=meth, level=lvl)
-    cols["log_loss"], cols["brier"] = v["log_loss"], v["brier"]
-    if sums is not None:
-        cols["log_loss_low"], cols["log_loss_high"] = mean_interval(c["n"], sums[:, 0], sums[:, 1], level=lvl)
-        cols["brier_low"], cols["brier_high"] = mean_interval(c["n"], sums[:, 2], sums[:, 3], level=lvl)
+    if k_cls == 2:
+        cols.update(_binary_columns(counts, rest, sums, rsums, auc, cfg, n_rows))
+        c = count_frame(counts)
+        rc = count_frame(rest)
+        mb = _metric_block(cfg, c, rc, metric_values(c, sums), metric_values(rc, rsums), sums, rsums)
     else:
-        for k in ("log_loss_low", "log_loss_high", "brier_low", "brier_high"):
-            cols[k] = np.full(len(idx), np.nan)
-    cols["roc_auc"] = auc
+        from . import multiclass
 
-    mb = _metric_block(cfg, c, rc, v, rv, sums, rsums)
-    m = METRICS[cfg.metric]
+        cols.update(multiclass.columns(counts, sums, fitted.outcomes.classes, cfg, n_rows))
+        mb = multiclass.metric_block(cfg, m, counts, rest, sums, rsums, fitted.outcomes.classes)
+    n_slice, rest_n = counts.sum(axis=1), rest.sum(axis=1)
     cols["metric"] = np.full(len(idx), cfg.metric, dtype=object)
-    cols["rest_n"] = rc["n"]
+    cols["rest_n"] = rest_n
     for k in ("metric_value", "metric_low", "metric_high", "rest_value", "diff", "diff_low", "diff_high",
               "effect_size"):
         cols[k] = mb[k]
@@ -190,9 +203,9 @@ def summarize(tl: Tally, fitted: Fitted, cfg: AuditConfig, *, source: SourceInfo
     status = np.full(len(idx), "tested", dtype=object)
     reason = np.full(len(idx), "", dtype=object)
     ms, mms = cfg.min_support, cfg.min_metric_support
-    few_rows = c["n"] < ms
+    few_rows = n_slice < ms
     few_metric = support < mms
-    rest_small = (rc["n"] < ms) | (rsupport < mms)
+    rest_small = (rest_n < ms) | (rsupport < mms)
     undefined = np.isnan(mb["metric_value"]) | np.isnan(mb["rest_value"]) | np.isnan(mb["p_value"])
     reason[undefined] = "metric undefined in the slice or the rest"
     status = np.where(undefined, "undefined", status)
@@ -202,7 +215,7 @@ def summarize(tl: Tally, fitted: Fitted, cfg: AuditConfig, *, source: SourceInfo
     reason[idx_m] = [f"{int(v)} {sup_title} < {mms}" for v in support[idx_m]]
     status = np.where(few_metric, "below_support", status)
     idx_r = np.flatnonzero(few_rows)
-    reason[idx_r] = [f"{int(v)} rows < {ms}" for v in c["n"][idx_r]]
+    reason[idx_r] = [f"{int(v)} rows < {ms}" for v in n_slice[idx_r]]
     status = np.where(few_rows, "below_support", status)
     status = np.where(order == 0, "whole_table", status)
     reason[order == 0] = "the reference population"
@@ -218,14 +231,19 @@ def summarize(tl: Tally, fitted: Fitted, cfg: AuditConfig, *, source: SourceInfo
     df = pd.DataFrame(cols)
 
     whole = df.iloc[0]
-    overall = {"n": int(whole["n"]), "tp": int(whole["tp"]), "fp": int(whole["fp"]), "fn": int(whole["fn"]),
-               "tn": int(whole["tn"])}
-    for k in RATE_COLUMNS + ["f1", "jaccard", "log_loss", "brier"]:
-        overall[k] = _num(whole[k])
-        if f"{k}_low" in df.columns:
-            overall[f"{k}_low"], overall[f"{k}_high"] = _num(whole[f"{k}_low"]), _num(whole[f"{k}_high"])
-    for k in ("f1_neg", "macro_f1", "roc_auc"):
-        overall[k] = _num(whole[k])
+    if k_cls == 2:
+        overall = {"n": int(whole["n"]), "tp": int(whole["tp"]), "fp": int(whole["fp"]), "fn": int(whole["fn"]),
+                   "tn": int(whole["tn"])}
+        for k in RATE_COLUMNS + ["f1", "jaccard", "log_loss", "brier"]:
+            overall[k] = _num(whole[k])
+            if f"{k}_low" in df.columns:
+                overall[f"{k}_low"], overall[f"{k}_high"] = _num(whole[f"{k}_low"]), _num(whole[f"{k}_high"])
+        for k in ("f1_neg", "macro_f1", "roc_auc"):
+            overall[k] = _num(whole[k])
+    else:
+        from . import multiclass
+
+        overall = multiclass.overall(whole, fitted.outcomes.classes)
     kept_attrs = tuple(a for i, a in enumerate(attrs) if i not in restated)
     timings["statistics"] = time.perf_counter() - t
     method: dict[str, Any] = {
