@@ -46,6 +46,35 @@ def _edges(text: str) -> tuple[str, list[float]]:
         raise argparse.ArgumentTypeError(f"bin edges in '{text}' must be numbers") from None
 
 
+def _metric(text: str) -> str:
+    from ..stats.methods import CLASS_METRICS, MULTICLASS_ONLY
+
+    base, sep, cls = text.partition(":")
+    if text in METRICS or text in MULTICLASS_ONLY or (sep and base in CLASS_METRICS and cls):
+        return text
+    raise argparse.ArgumentTypeError(f"invalid choice: '{text}' (choose from {', '.join(METRICS)}, macro_f1, "
+                                     "recall:CLASS, precision:CLASS, f1:CLASS)")
+
+
+def _score(text: str):
+    """One column (two classes), or CLASS=COLUMN,... with one probability column per class."""
+    if "=" not in text:
+        return text
+    out = {}
+    for part in text.split(","):
+        cls, sep, col = part.partition("=")
+        if not sep or not cls or not col:
+            raise argparse.ArgumentTypeError(f"'{text}' should look like CLASS=COLUMN,CLASS=COLUMN,...")
+        out[cls] = col
+    return out
+
+
+def _classes(text: str):
+    """One class, or several separated by commas (a favourable set)."""
+    items = _csv_list(text)
+    return items[0] if len(items) == 1 else items
+
+
 def _pair(text: str) -> tuple[str, str]:
     col, sep, val = text.partition("=")
     if not sep or not col:
@@ -64,7 +93,9 @@ def build_parser() -> argparse.ArgumentParser:
     g = a.add_argument_group("columns")
     g.add_argument("--label", help="true label column")
     g.add_argument("--pred", help="predicted label column")
-    g.add_argument("--score", help="predicted probability of the positive class")
+    g.add_argument("--score", type=_score, metavar="COL | CLASS=COL,...",
+                   help="predicted probability of the positive class; with three or more classes, one column per "
+                        "class: approve=p_approve,refer=p_refer,decline=p_decline")
     g.add_argument("--positive", help="the positive class (inferred for 0/1, false/true, no/yes)")
     g.add_argument("--threshold", type=float, help="with --score only: predict positive when score >= T (0.5)")
     g.add_argument("--attributes", type=_csv_list, help="comma-separated attribute columns (default: all others)")
@@ -78,7 +109,9 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--bin-edges", type=_edges, action="append", metavar="COL=E0,E1,...",
                    help="explicit bin edges for one numeric column (repeatable)")
     s = a.add_argument_group("statistics")
-    s.add_argument("--metric", choices=list(METRICS), help="audited metric (error_rate)")
+    s.add_argument("--metric", type=_metric, metavar="NAME",
+                   help="audited metric (error_rate): " + ", ".join(METRICS) + "; with three or more classes also "
+                        "macro_f1 and recall:CLASS, precision:CLASS, f1:CLASS")
     s.add_argument("--min-support", type=int, help="fewest rows for a slice to be tested (30)")
     s.add_argument("--min-metric-support", type=int,
                    help="fewest rows in the metric's denominator, e.g. actual positives for recall (10)")
@@ -92,7 +125,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="highest slice order with ROC AUC (1; -1 for none)")
     f = a.add_argument_group("fairness")
     f.add_argument("--protected", type=_csv_list, help="comma-separated protected attributes")
-    f.add_argument("--favorable", help="the predicted class that is favourable to the person "
+    f.add_argument("--favorable", type=_classes, help="the predicted class that is favourable to the person "
                                        "(required with --protected, e.g. 0 for a delinquency model)")
     f.add_argument("--reference", type=_pair, action="append", metavar="ATTR=GROUP",
                    help="reference group for one protected attribute (default: highest selection rate)")
