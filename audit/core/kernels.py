@@ -83,6 +83,36 @@ def _binary_kernel(gt, cell, ll, br, ga, gb, gcb, off, total, nth, block):  # pr
     return acc
 
 
+@njit(parallel=True, cache=True, nogil=True)
+def _class_kernel(gt, cell, ll, br, ga, gb, gcb, off, total, nth, block, kk):  # pragma: no cover - compiled
+    # _binary_kernel for K classes: a record of K² cell counts then Σll, Σll², Σbr, Σbr².
+    n = cell.shape[0]
+    nf = ga.shape[0]
+    rw = kk + 4
+    acc = np.zeros((nth, total * rw), dtype=np.float64)
+    chunk = (n + nth - 1) // nth
+    for t in prange(nth):
+        lo = t * chunk
+        hi = min(n, lo + chunk)
+        o = acc[t]
+        for blo in range(lo, hi, block):
+            bhi = min(hi, blo + block)
+            for k in range(nf):
+                start = off[k]
+                ca = gt[ga[k]]
+                cb = gt[gb[k]]
+                width = gcb[k]
+                for r in range(blo, bhi):
+                    base = (start + np.int64(ca[r]) * width + cb[r]) * rw
+                    a = ll[r]
+                    b = br[r]
+                    o[base + cell[r]] += 1.0
+                    o[base + kk] += a
+                    o[base + kk + 1] += a * a
+                    o[base + kk + 2] += b
+                    o[base + kk + 3] += b * b
+    return acc
+
 
 @njit(parallel=True, cache=True, nogil=True)
 def _bucket_rows(score, y, cm, nbk, nth):  # pragma: no cover - compiled

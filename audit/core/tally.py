@@ -34,6 +34,8 @@ LOSS_SUMS = ("log_loss", "log_loss_sq", "brier", "brier_sq")
 N_SUMS = len(LOSS_SUMS)
 #: Rows per block of the compiled kernel (see ``kernels._binary_kernel``); measured in bench/.
 KERNEL_BLOCK = 8192
+#: Most classes the compiled tally handles (a record of K² + 4 numbers per slice).
+MAX_COMPILED_CLASSES = 12
 #: Rows × families from which the compiled kernels are used by default: below it the numpy
 #: path is faster than loading numba and its cached kernels (about a second).
 COMPILED_MIN_WORK = 5_000_000
@@ -222,7 +224,7 @@ def tally(codes, cards, cell, ll=None, br=None, *, families, n_classes=2, kernel
     most two attributes, anything else uses numpy).
     """
     families = tuple(families)
-    if (not use_compiled(len(cell), len(families), kernel) or n_classes != 2
+    if (not use_compiled(len(cell), len(families), kernel) or n_classes > MAX_COMPILED_CLASSES
             or any(len(f) > 2 for f in families)):
         return tally_numpy(codes, cards, cell, ll, br, families=families, n_classes=n_classes)
     pairs = tuple(f for f in families if len(f) == 2)
@@ -371,7 +373,12 @@ def _run_group_kernel(codes, cards, cell, ll, br, groups, gcards, gpairs, n_clas
             np.add(v, codes[a], out=v, casting="unsafe")
     total = int(goffsets[-1])
     c8 = cell.astype(np.int8, copy=False)
-    acc = _binary_kernel(gt, c8, ll, br, ga, gb, gcb, goffsets[:-1].copy(), total, nth, KERNEL_BLOCK)
+    if n_classes == 2:
+        acc = _binary_kernel(gt, c8, ll, br, ga, gb, gcb, goffsets[:-1].copy(), total, nth, KERNEL_BLOCK)
+    else:
+        from .kernels import _class_kernel
+
+        acc = _class_kernel(gt, c8, ll, br, ga, gb, gcb, goffsets[:-1].copy(), total, nth, KERNEL_BLOCK, kk)
     return acc.sum(axis=0).reshape(total, kk + 4)
 
 
