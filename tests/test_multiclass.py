@@ -208,3 +208,16 @@ def test_compiled_k_class_tally_equals_the_numpy_reference():
     b = tally_numpy(codes, cards, cell, ll, br, families=fams, n_classes=k)
     assert np.array_equal(a.counts, b.counts)
     np.testing.assert_allclose(a.sums, b.sums, rtol=1e-10)
+
+
+def test_the_routing_demo_hides_its_weakness_from_error_rate_and_shows_it_per_class():
+    from demo.routing import generate
+
+    df = generate()
+    score = {"approve": "p_approve", "refer": "p_refer", "decline": "p_decline"}
+    by_error = audit.run(df, label="desk", score=score, max_order=1)
+    by_refer = audit.run(df, label="desk", score=score, max_order=1, metric="recall:refer")
+    assert not by_error.slice("channel=partner")["flagged"]
+    s = by_refer.slice("channel=partner")
+    assert s["flagged"] and s["rank"] == 1 and s["metric_value"] < s["rest_value"] - 0.1
+    assert by_error.skipped["application_id"].startswith("looks like an identifier")
