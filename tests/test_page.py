@@ -245,6 +245,7 @@ def test_bad_files_show_a_message_not_an_exception():
     assert not at.exception
     msg = " ".join(e.value for e in at.error)
     assert "label column 'y' has 3 distinct values" in msg.replace("\\", "").lower() and "True label column" in msg
+    assert "--" not in msg and "=" not in msg.replace("\\", "")
 
 
 def test_reference_group_on_a_missing_attribute_is_reported(demo_df):

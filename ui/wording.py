@@ -40,7 +40,11 @@ _OPENINGS = [
 
 def _plain(message: str) -> str:
     """Drop the API/command-line spellings (``(pred=..., --pred)``, ``pass positive=...``)."""
-    text = re.sub(r"\s*\((?:[a-z_]+=\.\.\.,?\s*)?--[a-z-]+\)", "", message)
+    if "multi-class" in message:  # the page audits two-class labels
+        message = message.split(";")[0] + "; the page audits labels with two classes (use the command line or " \
+            "the Python API for more)"
+    text = re.sub(r"\s*\([^()]*--[a-z-]+[^()]*\)", "", message)
+    text = re.sub(r"\s*\((?:[a-z_]+=\.\.\.,?\s*)?--[a-z-]+\)", "", text)
     text = re.sub(r"\s*\([a-z_]+=\.\.\.\)", "", text)
     text = re.sub(r"\bpass ([a-z_]+)=\.\.\.", lambda m: "set " + WIDGETS.get(m.group(1), m.group(1)), text)
     text = re.sub(r"\s*--[a-z-]+", "", text)
@@ -48,6 +52,8 @@ def _plain(message: str) -> str:
 
 
 def setting_of(exc: AuditInputError) -> str | None:
+    if "multi-class" in str(exc):
+        return "label"
     name = getattr(exc, "setting", None)
     if name:
         return name

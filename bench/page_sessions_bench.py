@@ -1,0 +1,157 @@
+"""Several people at once: real browser sessions against the page served on 127.0.0.1.
+
+Starts ``streamlit run ui/app.py`` on a free loopback port (a fresh server process), then:
+
+1. cold start: the first browser opens the page; time until the demo's ranked table shows;
+2. one session alone: open the page, upload a 20,000-row file, time until its ranked table shows;
+3. rounds of four concurrent sessions (separate browser contexts, so separate Streamlit
+   sessions), each uploading its own 20,000-row file (new files every round, so the caches
+   fill); each session's time from page load to its ranked table; the server's resident
+   memory (VmRSS from /proc) after every round.
+
+Prints the concurrency ratio (each concurrent session's time / the lone session's time; two
+cores cannot do better than 2×) and the memory growth from round 1 to round 5.
+Goals (issue 14, section 3): ratio ≤ 2.5 for each of the four; growth ≤ 300 MB; cold start ≤ 4 s.
+
+    .venv/bin/python bench/page_sessions_bench.py [--rows 20000] [--rounds 5] [--sessions 4]
+"""
+from __future__ import annotations
+
+import argparse
+import asyncio
+import os
+import socket
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+import urllib.request
+
+ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+sys.path.insert(0, ROOT)
+CHROMIUM = "/usr/bin/chromium"
+ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
+        "--disable-component-update", "--disable-sync", "--no-first-run", "--disable-quic"]
+RANKED = '[data-testid="stDataFrame"]'
+
+
+def start_server(home: str) -> tuple[subprocess.Popen, str]:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        port = s.getsockname()[1]
+    log = open(os.path.join(home, "streamlit.log"), "w")
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "streamlit", "run", os.path.join(ROOT, "ui", "app.py"), "--server.headless", "true",
+         "--server.port", str(port), "--server.address", "127.0.0.1", "--browser.gatherUsageStats", "false",
+         "--server.fileWatcherType", "none"], cwd=ROOT, stdout=log, stderr=subprocess.STDOUT,
+        env={**os.environ, "HOME": home})
+    url = f"http://127.0.0.1:{port}"
+    deadline = time.time() + 60
+    while time.time() < deadline:
+        try:
+            if urllib.request.urlopen(url + "/_stcore/health", timeout=2).read() == b"ok":
+                return proc, url
+        except OSError:
+            time.sleep(0.2)
+    proc.terminate()
+    raise RuntimeError("streamlit did not start")
+
+
+def rss_mb(pid: int) -> float:
+    with open(f"/proc/{pid}/status") as fh:
+        for line in fh:
+            if line.startswith("VmRSS:"):
+                return int(line.split()[1]) / 1024
+    return float("nan")
+
+
+async def session(browser, url: str, path: str | None, n: int | None) -> float:
+    """Open the page (and upload ``path``); seconds until the ranked table of this file shows."""
+    ctx = await browser.new_context(viewport={"width": 1280, "height": 1400})
+    page = await ctx.new_page()
+    t = time.perf_counter()
+    await page.goto(url, wait_until="domcontentloaded")
+    await page.get_by_text("The whole model first").wait_for(timeout=300_000)
+    await page.locator(RANKED).nth(1).wait_for(timeout=300_000)
+    if path is not None:
+        await page.locator('[data-testid="stFileUploader"] input[type="file"]').set_input_files(path)
+        await page.get_by_text(f"Using the uploaded file {os.path.basename(path)}").wait_for(timeout=300_000)
+        await page.locator('[data-testid="stMetric"]').filter(has_text=f"{n:,}").first.wait_for(timeout=300_000)
+        await page.locator(RANKED).nth(1).wait_for(timeout=300_000)
+        await page.locator('[data-testid="stStatusWidget"]').wait_for(state="detached", timeout=300_000)
+    took = time.perf_counter() - t
+    await ctx.close()
+    return took
+
+
+def make_file(folder: str, rows: int, seed: int) -> str:
+    from demo.generate import generate
+
+    path = os.path.join(folder, f"upload-{seed}.csv")
+    generate(rows, seed=seed).to_csv(path, index=False)
+    return path
+
+
+async def main_async(a) -> int:
+    from playwright.async_api import async_playwright
+
+    folder = tempfile.mkdtemp(prefix="fissure-sessions-")
+    # 20,000 + seed rows: each file's row count is its own (and differs from the demo's).
+    files = {seed: make_file(folder, a.rows + seed, seed) for seed in range(1, 2 + a.rounds * a.sessions)}
+    proc, url = start_server(folder)
+    try:
+        async with async_playwright() as pw:
+            browser = await pw.chromium.launch(executable_path=CHROMIUM, headless=True, args=ARGS)
+            cold = await session(browser, url, None, None)
+            print(f"cold start (fresh server, first open until the demo's ranked table shows): {cold:.2f} s "
+                  f"(goal ≤ 4 s); server {rss_mb(proc.pid):.0f} MB")
+            warm = await session(browser, url, None, None)
+            print(f"second open (warm server): {warm:.2f} s")
+            alone = []
+            for _ in range(2):
+                alone.append(await session(browser, url, files[1], a.rows + 1))
+            base = min(alone)
+            print(f"one session alone, page load to ranked table of a {a.rows:,}-row upload: "
+                  + ", ".join(f"{x:.2f}" for x in alone) + f" s (best {base:.2f} s)")
+            mem, ratios = [], []
+            seed = 2
+            for r in range(a.rounds):
+                todo = []
+                for _ in range(a.sessions):
+                    todo.append(session(browser, url, files[seed], a.rows + seed))
+                    seed += 1
+                t = time.perf_counter()
+                times = await asyncio.gather(*todo)
+                wall = time.perf_counter() - t
+                mem.append(rss_mb(proc.pid))
+                rr = [x / base for x in times]
+                ratios += rr
+                print(f"round {r + 1}: {a.sessions} sessions " + ", ".join(f"{x:.2f}" for x in times)
+                      + f" s (ratio to alone " + ", ".join(f"{x:.2f}" for x in rr) + f"; max {max(rr):.2f}); "
+                      f"wall {wall:.2f} s; server {mem[-1]:.0f} MB")
+            await browser.close()
+        print(f"\nconcurrency: worst session {max(ratios):.2f}× the lone session, median {statistics.median(ratios):.2f}× "
+              f"(goal ≤ 2.5× for each)")
+        print(f"memory: after round 1 {mem[0]:.0f} MB, after round {len(mem)} {mem[-1]:.0f} MB, growth "
+              f"{mem[-1] - mem[0]:+.0f} MB (goal ≤ 300 MB)")
+    finally:
+        proc.terminate()
+        try:
+            proc.wait(timeout=10)
+        except subprocess.TimeoutExpired:
+            proc.kill()
+    return 0
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--rows", type=int, default=20_000)
+    ap.add_argument("--rounds", type=int, default=5)
+    ap.add_argument("--sessions", type=int, default=4)
+    a = ap.parse_args(argv)
+    return asyncio.run(main_async(a))
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
