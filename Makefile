@@ -29,6 +29,7 @@ test: setup
 	$(BIN)/python -m pytest -q; rc=$$?; if [ $$rc -eq 5 ]; then echo "pytest collected no tests"; exit 0; fi; exit $$rc
 
 bench: setup
+	$(BIN)/python bench/startup_bench.py
 	$(BIN)/python bench/slices_bench.py
 
 bench-startup: setup

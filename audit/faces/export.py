@@ -124,6 +124,8 @@ def summary(result, *, created: str | None = None, gate=None) -> dict[str, Any]:
         "attributes": [{"name": a.name, "kind": a.kind, "levels": list(a.levels),
                         "bin_edges": None if a.edges is None else list(a.edges), "missing_rows": a.n_missing}
                        for a in result.attributes],
+        # The fitted encoding, enough to apply the same slice layout again: audit.Encoding.from_dict(...)
+        "encoding": result.encoding.to_dict() if result.encoding is not None else None,
         "configuration": cfg.as_dict(),
         "configuration_sha256": cfg.digest(),
         "method": method_notes(result),
