@@ -10,6 +10,7 @@ from ..stats.compare import MIN_EXPECTED, TESTS
 from ..stats.correct import CORRECTIONS
 from ..stats.intervals import INTERVALS
 from ..stats.measure import EXTRA_FORMULAS, METRICS
+from ..stats.methods import metric_for
 
 CAUTION = ("A flag is a statistical signal that a slice's metric differs from the rest of the rows by more "
            "than chance would explain. It is not a finding of discrimination, unfairness or unlawful treatment, "
@@ -22,7 +23,7 @@ def limitations(result) -> list[tuple[str, str]]:
     """What this audit cannot show, as (title, text) pairs; the report and summary.json share them."""
     cfg = result.config
     corr = CORRECTIONS[cfg.correction].title
-    return [
+    out = [
         ("Small slices and power",
          f"A slice needs {cfg.min_support} rows to be tested; smaller slices are listed but not judged. A slice that "
          "is tested but not flagged may still be worse: with few rows a real gap can hide inside the interval. "
@@ -48,19 +49,66 @@ def limitations(result) -> list[tuple[str, str]]:
          "Results hold for this table and this decision threshold; another period, population or threshold can "
          "give other results."),
     ]
+    if is_multiclass(result):
+        out[-1] = ("Prediction rule and sample",
+                   f"Results hold for this table and this way of making the prediction ({prediction_words(result)}); "
+                   "another period, population or rule can give other results.")
+    return out
+
+
+def is_multiclass(result) -> bool:
+    """Whether the audit's label has three or more classes."""
+    return len(result.classes) >= 3
+
+
+#: Formulas of a multi-class audit: per class c one-vs-rest, then the averages (scikit-learn's
+#: ``precision_recall_fscore_support`` definitions: macro over the classes present in the slice).
+MULTICLASS_FORMULAS = {
+    "support_c": "rows whose true class is c",
+    "predicted_c": "rows predicted c",
+    "precision_c": "tp_c / (rows predicted c)",
+    "recall_c": "tp_c / (rows of true class c)",
+    "f1_c": "2 tp_c / (2 tp_c + fp_c + fn_c)",
+    "jaccard_c": "tp_c / (tp_c + fp_c + fn_c)",
+    "accuracy": "(sum of the diagonal of the K × K confusion matrix) / n",
+    "error_rate": "1 − accuracy = (rows off the diagonal) / n",
+    "macro_f1": "mean of f1_c over the classes present in the slice (in its truth or predictions)",
+    "macro_precision": "mean of precision_c over the classes present (0 for a present class never predicted)",
+    "macro_recall": "mean of recall_c over the classes present (0 for a present class with no true rows)",
+    "micro_f1": "F1 of the pooled one-vs-rest counts; equals accuracy for single-label data",
+    "weighted_f1": "mean of f1_c weighted by support_c",
+    "log_loss": "-(1/n) Σ ln p_i(true class of row i), p clipped to [1e-15, 1 - 1e-15]",
+    "brier": "(1/n) Σ_i Σ_c (p_ic − y_ic)², y_ic = 1 when row i's true class is c",
+}
+
+
+def prediction_words(result) -> str:
+    """How the prediction was made, in one sentence fragment (the report and summary.json say it)."""
+    cfg = result.config
+    src = result.prediction_source
+    if src == "column":
+        return f"the predicted-label column '{cfg.pred}'"
+    if src == "threshold":
+        return f"probability column '{cfg.score}' ≥ threshold {cfg.threshold:g}"
+    cols = ", ".join(f"{c}: '{cfg.score[c]}'" for c in result.classes) if isinstance(cfg.score, dict) else str(cfg.score)
+    return (f"the most probable class of each row from its probability columns ({cols}); a tie goes to the class "
+            f"that sorts first ({', '.join(str(c) for c in result.classes)})")
 
 
 def method_notes(result) -> dict[str, Any]:
     cfg = result.config
-    m = METRICS[cfg.metric]
+    m = metric_for(cfg.metric)
     if m.kind == "mean":
         test = TESTS["welch"].title + " from n, Σx, Σx²"
+    elif m.kind == "macro_f1":
+        test = ("z test of slice − rest with standard errors from the multinomial delta method applied to each "
+                "side's K × K cell shares (validated by simulation for interval coverage and test size)")
     elif m.kind == "f1":
         test = (f"{TESTS['z'].title} on the Jaccard index tp/(tp+fp+fn) (F1 = 2J/(1+J) is increasing in J); "
                 f"{TESTS['fisher'].title} when an expected count is below {MIN_EXPECTED:g}")
     else:
         test = f"{TESTS['z'].title}; {TESTS['fisher'].title} when an expected count is below {MIN_EXPECTED:g}"
-    return {
+    notes = {
         "metric": cfg.metric,
         "metric_title": m.title,
         "metric_formula": m.formula,
@@ -88,6 +136,40 @@ def method_notes(result) -> dict[str, Any]:
         "roc_auc": (f"computed for slices of order ≤ {cfg.auc_max_order}" if cfg.auc_max_order >= 0
                     else "not computed"),
     }
+    if is_multiclass(result):
+        notes.update(_multiclass_notes(result, m))
+    return notes
+
+
+def _multiclass_notes(result, m) -> dict[str, Any]:
+    """What differs in the method notes of a label with three or more classes."""
+    cfg = result.config
+    notes: dict[str, Any] = {
+        "classes": [str(c) for c in result.classes],
+        "prediction": prediction_words(result),
+        "formulas": dict(MULTICLASS_FORMULAS),
+        "per_class": "each class c one-vs-rest: tp_c rows of true class c predicted c, fp_c rows predicted c of "
+                     "another true class, fn_c rows of true class c predicted another class",
+        "undefined": "a per-class ratio with a zero denominator is NaN (empty in CSV); the averages follow "
+                     "scikit-learn (classes present in the slice, zero_division=0); a slice whose audited metric "
+                     "is undefined is not tested or ranked",
+        "roc_auc": "not computed for three or more classes",
+    }
+    notes["interval"] = {
+        "method": cfg.interval, "title": INTERVALS[cfg.interval].title, "level": cfg.level,
+        "reference": INTERVALS[cfg.interval].reference,
+        "rates": "accuracy, error rate and per-class precision and recall are proportions: "
+                 f"{INTERVALS[cfg.interval].title} interval",
+        "f1": "per-class F1: interval for its Jaccard index mapped through F1 = 2J/(1+J)",
+        "macro_f1": "normal interval, macro-F1 ± z·SE, SE from the multinomial delta method, clipped to [0, 1]",
+        "means": "Student t interval from n, Σx, Σx²",
+        "differences": "Newcombe's hybrid score interval for rates; MOVER (Zou & Donner 2008) for per-class F1; "
+                       "normal interval with the two delta-method variances added for macro-F1; Welch interval "
+                       "for mean losses",
+    }
+    if m.kind == "macro_f1":
+        notes["effect_size"] = "Cohen's h = 2 asin √(macro-F1 slice) − 2 asin √(macro-F1 rest)"
+    return notes
 
 
 def fmt_p(x) -> str:
@@ -174,8 +256,13 @@ def fairness_findings(result) -> "pd.DataFrame":
     fr = result.fairness
     if fr is None:
         return pd.DataFrame(columns=cols)
-    neg, pos = (str(c) for c in result.classes)
-    fav_is_pos = bool(fr.favorable_is_positive)
+    if is_multiclass(result):
+        # One versus rest for the favourable set: "positive" means a class of the set.
+        pos, neg = str(fr.favorable), f"other than {fr.favorable}"
+        fav_is_pos = True
+    else:
+        neg, pos = (str(c) for c in result.classes)
+        fav_is_pos = bool(fr.favorable_is_positive)
     fav, unfav = (pos, neg) if fav_is_pos else (neg, pos)
     alpha = result.config.alpha
     g = fr.groups
@@ -228,20 +315,65 @@ def _num(x, digits=4) -> str:
 def terminal_summary(result, top: int = 10, *, gate=None) -> str:
     """The few lines the command line prints: overall metrics, slice counts, the worst slices,
     fairness flags with their direction, the gate and the caution."""
-    m = result.metric
     st = result.status_counts()
+    lines = _multiclass_head(result) if is_multiclass(result) else _binary_head(result)
+    lines.append(f"slices: {st.get('tested', 0)} tested (m = {result.family_size}), {st.get('below_support', 0)} "
+                 f"below support, {st['flagged']} flagged at {result.config.correction} {result.config.alpha:g}")
+    return _summary_tail(result, lines, top, gate)
+
+
+def _binary_head(result) -> list[str]:
+    m = result.metric
     o = result.overall
     shown = [(m.name, m.name)] + [(k, t) for k, t in (("accuracy", "accuracy"), ("recall", "recall"),
                                                       ("precision", "precision"), ("f1", "F1"),
                                                       ("log_loss", "log loss")) if k != m.name]
     overall = "  ".join(f"{t} {_num(o.get(k))}" for k, t in shown if o.get(k) is not None)
-    lines = [
+    return [
         f"fissure {result.version}: {result.n_rows} rows, positive class '{result.classes[1]}'"
         + (" (inferred)" if result.positive_inferred else ""),
         f"overall {overall}",
-        f"slices: {st.get('tested', 0)} tested (m = {result.family_size}), {st.get('below_support', 0)} below support, "
-        f"{st['flagged']} flagged at {result.config.correction} {result.config.alpha:g}",
     ]
+
+
+def _cut(name: str, width: int) -> str:
+    return name if len(name) <= width else name[: width - 1] + "…"
+
+
+def _multiclass_head(result) -> list[str]:
+    """Header of a multi-class terminal summary: classes and prediction rule, the averages, the
+    K × K confusion matrix of the whole table and one line per class (recall only per class)."""
+    m = result.metric
+    o = result.overall
+    classes = [str(c) for c in result.classes]
+    how = ("most probable class" if result.prediction_source == "most probable class"
+           else f"column '{result.config.pred}'")
+    shown = [(m.name, m.name)] + [(k, t) for k, t in (("accuracy", "accuracy"), ("macro_f1", "macro F1"),
+                                                      ("micro_f1", "micro F1"), ("weighted_f1", "weighted F1"),
+                                                      ("log_loss", "log loss"), ("brier", "Brier"))
+                                  if k != m.name]
+    overall = "  ".join(f"{t} {_num(o.get(k))}" for k, t in shown if o.get(k) is not None)
+    lines = [f"fissure {result.version}: {result.n_rows} rows, {len(classes)} classes "
+             f"({', '.join(_cut(c, 20) for c in classes)}); prediction: {how}",
+             f"overall {overall}"]
+    w = max(8, min(16, max(len(c) for c in classes)))
+    conf = o.get("confusion") or []
+    cw = max(8, max((len(f"{int(x):,}") for row in conf for x in row), default=1) + 1)
+    lines.append("confusion matrix, whole table (rows: true class, columns: predicted):")
+    lines.append("  " + " " * w + "".join(f"{_cut(c, cw - 1):>{cw}}" for c in classes))
+    for c, row in zip(classes, conf):
+        lines.append(f"  {_cut(c, w):<{w}}" + "".join(f"{int(x):>{cw},}" for x in row))
+    lines.append(f"per class: {'class':<{w}} {'support':>8} {'predicted':>9} {'precision':>9} {'recall':>7} "
+                 f"{'F1':>7}")
+    for c in classes:
+        pc = (o.get("per_class") or {}).get(c, {})
+        lines.append(f"           {_cut(c, w):<{w}} {int(pc.get('support', 0)):>8,} {int(pc.get('predicted', 0)):>9,} "
+                     f"{_num(pc.get('precision')):>9} {_num(pc.get('recall')):>7} {_num(pc.get('f1')):>7}")
+    return lines
+
+
+def _summary_tail(result, lines: list[str], top: int, gate) -> str:
+    m = result.metric
     if result.skipped:
         lines.append("skipped: " + "; ".join(f"{k} ({v})" for k, v in result.skipped.items()))
     ranked = result.ranked().head(top)
@@ -269,3 +401,51 @@ def terminal_summary(result, top: int = 10, *, gate=None) -> str:
                                          else f"passed ({', '.join(gate.checks)} checked)"))
     lines.append("Flags are statistical signals to investigate, not findings of discrimination or legal conclusions.")
     return "\n".join(lines)
+
+
+#: How :func:`class_drivers` works, in words (the report quotes it).
+DRIVERS_RULE = ("For each class c, the slice's recall of c (share of its rows of true class c predicted c) and "
+                "precision of c (share of its rows predicted c that are truly c) are set beside the same rates "
+                "for the rest of the rows, whose counts are the whole table's minus the slice's. The classes "
+                "listed are those whose rate falls furthest below the rest's (largest gap first); a rate with "
+                "fewer than {min_rows} rows behind it in the slice is left out as too noisy to read.")
+
+
+def class_drivers(result, slice_name: str, *, top: int = 3):
+    """Which classes drive a slice: per-class recall and precision, slice against the rest.
+
+    Computed from the slice's K × K counts and the whole table's (rest = whole − slice); no
+    test is run. Rows: ``class``, ``rate`` ("recall" or "precision"), ``slice_value``,
+    ``rest_value``, ``gap`` (slice − rest; negative is worse), ``slice_rows`` and ``rest_rows``
+    (the rate's denominators), sorted worst first, only negative gaps, at most ``top`` rows.
+    A rate with fewer than ``min_metric_support`` rows in the slice's denominator is left out.
+    Empty for two classes.
+    """
+    import pandas as pd
+
+    cols = ["class", "rate", "slice_value", "rest_value", "gap", "slice_rows", "rest_rows"]
+    if not is_multiclass(result):
+        return pd.DataFrame(columns=cols)
+    from ..stats.result import ALL
+
+    s, whole = result.slice(slice_name), result.slice(ALL)
+    classes = [str(c) for c in result.classes]
+
+    def cells(row):
+        import numpy as np
+
+        return np.array([[float(row[f"true_{t}_pred_{p}"]) for p in classes] for t in classes])
+
+    cs, cw = cells(s), cells(whole)
+    cr = cw - cs
+    rows = []
+    for i, c in enumerate(classes):
+        for rate, axis in (("recall", 1), ("precision", 0)):
+            den_s, den_r = cs.sum(axis=axis)[i], cr.sum(axis=axis)[i]
+            if den_s < result.config.min_metric_support or den_r <= 0:
+                continue
+            vs, vr = cs[i, i] / den_s, cr[i, i] / den_r
+            if vs < vr:
+                rows.append([c, rate, vs, vr, vs - vr, int(den_s), int(den_r)])
+    out = pd.DataFrame(rows, columns=cols)
+    return out.sort_values("gap", kind="stable").head(top).reset_index(drop=True)
