@@ -200,3 +200,28 @@ def test_a_column_that_copies_the_label_is_skipped_with_its_reason():
     res = audit.run(df, label="y", score="p")
     assert res.skipped["outcome_copy"].startswith("restates the label 'y'")
     assert "outcome_copy" not in [a.name for a in res.attributes]
+
+
+def test_slice_names_in_any_order_with_suggestions_and_readable_p_values(demo_result):
+    s = demo_result.slice("employment_type=gig & age_band=18-24")  # written in the other order
+    assert s["slice"] == "age_band=18-24 & employment_type=gig"
+    with pytest.raises(AuditInputError, match=r"no slice named 'chanel=broker'; did you mean 'channel=broker'"):
+        demo_result.slice("chanel=broker")
+    assert s["p_value"] < 1e-20 and f"{s['p_value']:.4g}" in repr(s)  # not printed as 0.0
+
+
+def test_unlabelled_rows_are_dropped_counted_and_reported(tmp_path):
+    from audit.faces.export import summary
+
+    df = random_table(n=500, seed=2).astype({"y": float})
+    df.loc[[3, 70, 71], "y"] = np.nan
+    with pytest.raises(AuditInputError, match=r"label column 'y' has a missing value at data row 4 "
+                                              r"\(drop_unlabelled=True, --drop-unlabelled"):
+        audit.run(df, label="y", score="p")
+    res = audit.run(df, label="y", score="p", drop_unlabelled=True)
+    assert res.n_rows == 497 and res.n_unlabelled == 3
+    assert summary(res)["input"]["unlabelled_rows_dropped"] == 3
+    path = tmp_path / "t.csv"
+    df.to_csv(path, index=False)
+    chunked = audit.run(str(path), label="y", score="p", drop_unlabelled=True, chunk_rows=64)
+    assert chunked.n_unlabelled == 3 and chunked.slices["n"].tolist() == res.slices["n"].tolist()

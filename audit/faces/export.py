@@ -20,7 +20,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import AuditInputError
-from .prose import CAUTION, fairness_findings, limitations, method_notes
+from .prose import CAUTION, fairness_findings, is_multiclass, limitations, method_notes, prediction_words
 
 _FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
 
@@ -78,6 +78,8 @@ def frame_csv(frame: pd.DataFrame) -> bytes:
             df[col] = np.where(s.to_numpy(), "true", "false")
         elif pd.api.types.is_object_dtype(s) or pd.api.types.is_string_dtype(s):
             df[col] = [neutralise(x) for x in s.tolist()]
+    # Headers can carry a class name (precision_<class>): guarded like cells; ordinary names unchanged.
+    df.columns = [neutralise(str(c)) for c in df.columns]
     buf = io.StringIO()
     df.to_csv(buf, index=False, na_rep="", lineterminator="\n", float_format="%.10g")
     return buf.getvalue().encode("utf-8")
@@ -111,16 +113,13 @@ def summary(result, *, created: str | None = None, gate=None) -> dict[str, Any]:
         "created": created or now_utc(),
         "model": {"name": cfg.model_name, "version": cfg.model_version, "intended_use": cfg.intended_use},
         "input": {"name": result.source.name, "sha256": result.source.sha256, "bytes": result.source.n_bytes,
-                  "rows": result.n_rows},
+                  "rows": result.n_rows, "unlabelled_rows_dropped": result.n_unlabelled},
         "columns": {
             "label": cfg.label, "prediction": cfg.pred, "probability": cfg.score,
             "attributes": [a.name for a in result.attributes],
             "skipped": [{"column": k, "reason": v} for k, v in result.skipped.items()],
         },
-        "label_definition": {"classes": list(result.classes), "positive": result.classes[1],
-                             "positive_inferred": result.positive_inferred,
-                             "prediction_source": result.prediction_source,
-                             "threshold": cfg.threshold if result.prediction_source == "threshold" else None},
+        "label_definition": _label_definition(result),
         "attributes": [{"name": a.name, "kind": a.kind, "levels": list(a.levels),
                         "bin_edges": None if a.edges is None else list(a.edges), "missing_rows": a.n_missing}
                        for a in result.attributes],
@@ -151,6 +150,18 @@ def summary(result, *, created: str | None = None, gate=None) -> dict[str, Any]:
             for _, r in found.iterrows()]
         out["fairness"] = fair
     return out
+
+
+def _label_definition(result) -> dict[str, Any]:
+    cfg = result.config
+    if is_multiclass(result):
+        # No positive class with three or more classes; say how the prediction was made instead.
+        return {"classes": [str(c) for c in result.classes], "positive": None, "positive_inferred": False,
+                "prediction_source": result.prediction_source, "threshold": None,
+                "prediction": prediction_words(result)}
+    return {"classes": list(result.classes), "positive": result.classes[1],
+            "positive_inferred": result.positive_inferred, "prediction_source": result.prediction_source,
+            "threshold": cfg.threshold if result.prediction_source == "threshold" else None}
 
 
 def _f(x) -> float | None:

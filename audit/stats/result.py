@@ -17,6 +17,22 @@ from .intervals import f1_interval, proportion_interval
 from .measure import METRICS, RATES, count_frame, metric_values
 
 ALL = "(all)"
+class SliceRow(pd.Series):
+    """One slice's row; printed with four significant digits, so a p-value of 8e-38 reads 8e-38."""
+
+    @property
+    def _constructor(self):
+        return SliceRow
+
+    def __repr__(self) -> str:
+        def fmt(v):
+            return f"{v:.4g}" if isinstance(v, (float, np.floating)) and v == v else v
+
+        plain = pd.Series([fmt(v) for v in self.tolist()], index=self.index, name=self.name, dtype=object)
+        with pd.option_context("display.max_rows", None):
+            return repr(plain)
+
+
 #: Older name of the attribute record kept in results.
 AttributeInfo = AttributeCoding
 
@@ -80,7 +96,7 @@ class AuditResult:
             near = difflib.get_close_matches(name, self.slices["slice"].tolist(), n=3, cutoff=0.6)
             hint = f"; did you mean {' or '.join(repr(x) for x in near)}?" if near else ""
             raise AuditInputError(f"no slice named {name!r}{hint}")
-        return self.slices.loc[hit[0]]
+        return SliceRow(self.slices.loc[hit[0]])
 
     def _canonical_name(self, name: str) -> str | None:
         order = {a.name: i for i, a in enumerate(self.attributes)}
