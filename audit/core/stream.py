@@ -28,7 +28,8 @@ from ..errors import AuditInputError, shown
 from .auc import ExactAuc, hist_bins, score_histogram, slice_auc
 from .encoding import Encoding, choose_columns, fit_encoding, profile_column
 from .outcomes import (OutcomeSpec, check_columns, fit_outcomes, labelled_rows, need_columns, profile_outcomes)
-from .tally import Tally, class_losses, plan_families, row_losses, tally, tally_numpy, use_compiled
+from .tally import (LOSS_SUMS, Tally, class_losses, plan_families, plan_triples, row_losses, tally, tally_numpy,
+                    tally_triples, use_compiled)
 
 #: Equal-width probability bins of the fairness module's calibration error.
 CALIBRATION_BINS = 10
@@ -392,8 +393,8 @@ def fit_evidence(ev: Evidence, cfg) -> Fitted:
         protected.append(names.index(p))
     check_metric(cfg, spec)
     _check_fairness_settings(cfg, spec, enc)
-    fitted = Fitted(spec, enc, plan_families(len(names), cfg.max_order), protected, prof_out.n_rows, n_unlabelled,
-                    ev.chunked)
+    fams = plan_families(len(names), min(cfg.max_order, 2))  # triples are planned after the pairs are counted
+    fitted = Fitted(spec, enc, fams, protected, prof_out.n_rows, n_unlabelled, ev.chunked)
     if hist is not None:
         fitted.score_hist = hist
         fitted.median_bins = _order_stat_bins(hist, prof_out.n_rows)
@@ -472,8 +473,9 @@ def _fair_families(fitted: Fitted, has_score: bool) -> tuple[list[tuple[int, ...
 
 
 def tally_chunk(df: pd.DataFrame, fitted: Fitted, cfg, *, offset: int = 0, caches: dict | None = None,
-                kernel: str = "auto") -> Tally:
-    """Encode one chunk with the fitted encoding and tally it (slices, AUC evidence, fairness)."""
+                kernel: str = "auto", rows_out: dict | None = None) -> Tally:
+    """Encode one chunk with the fitted encoding and tally it (slices, AUC evidence, fairness).
+    ``rows_out`` (a dict) receives the chunk's codes, cells and losses for the triple pass."""
     caches = caches or {}
     out = fitted.outcomes.apply(df, caches.get("outcomes"))
     codes = fitted.encoding.apply(df, caches.get("attributes"), offset=offset)
@@ -489,6 +491,8 @@ def tally_chunk(df: pd.DataFrame, fitted: Fitted, cfg, *, offset: int = 0, cache
         ll, br = class_losses(out.y, out.probs)
     t = tally(codes, cards, cell, ll, br, families=fitted.families, n_classes=k,
               kernel="compiled" if compiled else "numpy")
+    if rows_out is not None:
+        rows_out.update(codes=codes, cell=cell, ll=ll, br=br)
     if out.score is not None and cfg.auc_max_order >= 0:
         sel = [i for i, f in enumerate(fitted.families) if len(f) <= cfg.auc_max_order]
         fams = [fitted.families[i] for i in sel]
@@ -584,7 +588,13 @@ def tally_source(source: Source, fitted: Fitted, cfg, *, keep: dict | None = Non
     """Second pass: the sum of every chunk's tally (the kept chunk of a DataFrame is reused)."""
     note = progress or (lambda stage, frac: None)
     if keep and "df" in keep:
-        return tally_chunk(keep["df"], fitted, cfg, caches=keep, kernel=kernel)
+        rows: dict = {}
+        t = tally_chunk(keep["df"], fitted, cfg, caches=keep, kernel=kernel, rows_out=rows if cfg.max_order >= 3
+                        else None)
+        if cfg.max_order >= 3:
+            plan = plan_triples(t, fitted.cards, min_rows=cfg.min_support)
+            t = t.joined(_triples(rows, fitted, cfg, plan, kernel))
+        return t
     total = None
     n_all = max(fitted.n_rows + fitted.n_unlabelled, 1)
     for offset, df in source.chunks(columns=needed_columns(fitted, cfg)):
@@ -593,7 +603,36 @@ def tally_source(source: Source, fitted: Fitted, cfg, *, keep: dict | None = Non
             total = t if total is None else total + t
         note("counting slices", min(1.0, (offset + len(df)) / n_all))
     total.n_unlabelled = fitted.n_unlabelled
+    if cfg.max_order >= 3:
+        # A third pass: which triples to count depends on the pairs' counts over the whole table.
+        plan = plan_triples(total, fitted.cards, min_rows=cfg.min_support)
+        tri = None
+        for offset, df in source.chunks(columns=needed_columns(fitted, cfg)):
+            if len(df) == 0:
+                continue
+            rows_ok = labelled_rows(df, cfg, offset=offset)
+            if rows_ok is not None:
+                df = df[rows_ok]
+            rows: dict = {}
+            out = fitted.outcomes.apply(df, None)
+            rows["codes"] = fitted.encoding.apply(df, None, offset=offset)
+            k = fitted.outcomes.n_classes
+            rows["cell"] = (out.y.astype(np.int16) * k + out.yhat).astype(np.int8)
+            rows["ll"] = rows["br"] = None
+            if out.score is not None:
+                rows["ll"], rows["br"] = row_losses(out.y, out.score)
+            elif out.probs is not None:
+                rows["ll"], rows["br"] = class_losses(out.y, out.probs)
+            part = _triples(rows, fitted, cfg, plan, kernel)
+            tri = part if tri is None else tri + part
+        total = total.joined(tri)
     return total
+
+
+def _triples(rows: dict, fitted: Fitted, cfg, plan, kernel: str) -> Tally:
+    """The planned triples of one chunk (loss sums only when the audited metric is a loss)."""
+    return tally_triples(rows["codes"], fitted.cards, rows["cell"], rows["ll"], rows["br"], plan=plan,
+                         n_classes=fitted.outcomes.n_classes, loss_sums=cfg.metric in LOSS_SUMS, kernel=kernel)
 
 
 def tally_part(df: pd.DataFrame, fitted: Fitted, cfg, *, offset: int = 0, kernel: str = "auto") -> Tally | None:

@@ -271,3 +271,74 @@ def error_rate_balance(fair_groups: pd.DataFrame, attribute: str, *, width: int 
 
 __all__ = ["PALETTE", "text", "log_ticks", "top_slices", "confusion", "pair_heatmap", "noise_band", "worst_pair", "selection_rates",
            "error_rate_balance"]
+
+
+# ---- three or more classes ----------------------------------------------------------------
+
+
+def class_confusion(confusion, classes, *, title: str = "Confusion matrix", width: int | None = None,
+                    height: int | None = None) -> go.Figure:
+    """A K × K grid for a label with three or more classes: rows the true class, columns the
+    predicted class; each cell shows its count and its share of the row (the row's recall on
+    the diagonal). ``confusion`` is a K × K list of counts (``result.overall["confusion"]``,
+    or a slice's ``true_<t>_pred_<p>`` counts, see :func:`slice_confusion`)."""
+    z = np.asarray(confusion, dtype=float)
+    k = len(classes)
+    names = _texts(classes)
+    row_tot = z.sum(axis=1, keepdims=True)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        share = np.where(row_tot > 0, z / np.maximum(row_tot, 1), np.nan)
+    cells = [[f"<b>{int(z[i, j]):,}</b><br>{share[i, j]:.1%}" if share[i, j] == share[i, j] else "0"
+              for j in range(k)] for i in range(k)]
+    fig = go.Figure(go.Heatmap(
+        z=share, x=[f"predicted {c}" for c in names], y=[f"true {c}" for c in names], text=cells,
+        texttemplate="%{text}", colorscale=HEAT_SCALE, zmin=0, zmax=1, showscale=False, xgap=3, ygap=3,
+        hovertemplate="%{y}<br>%{x}<br>%{text}<extra></extra>"))
+    fig.update_xaxes(type="category", side="top")
+    fig.update_yaxes(type="category", autorange="reversed", automargin=True)
+    return _layout(fig, title=text(title), width=width, height=height or max(300, 70 * k + 130))
+
+
+def slice_confusion(result, slice_name: str) -> list[list[int]]:
+    """The K × K counts of one slice (rows true class, columns predicted) from its columns."""
+    row = result.slice(slice_name)
+    cls = [str(c) for c in result.classes]
+    return [[int(row[f"true_{t}_pred_{p}"]) for p in cls] for t in cls]
+
+
+def per_class_bars(result, *, slice_name: str | None = None, width: int | None = None) -> go.Figure:
+    """Per-class precision, recall and F1 (one-vs-rest) as grouped bars, with each class's
+    support in its label; the whole table, or one slice with ``slice_name``. The macro average
+    of F1 is drawn as a dotted line."""
+    cls = [str(c) for c in result.classes]
+    if slice_name is None:
+        pc = result.overall["per_class"]
+        vals = {m: [pc[c][m] for c in cls] for m in ("precision", "recall", "f1")}
+        support = [pc[c]["support"] for c in cls]
+        macro = result.overall.get("macro_f1")
+        where = "whole table"
+    else:
+        row = result.slice(slice_name)
+        vals = {m: [float(row[f"{m}_{c}"]) for c in cls] for m in ("precision", "recall", "f1")}
+        support = [int(row[f"support_{c}"]) for c in cls]
+        macro = float(row["macro_f1"])
+        where = text(slice_name)
+    labels = [f"{text(c)}<br>(n={s:,})" for c, s in zip(cls, support)]
+    fig = go.Figure()
+    for m, title, colour, pattern in (("precision", "precision", PALETTE["calm"], ""),
+                                      ("recall", "recall", PALETTE["ink"], "/"),
+                                      ("f1", "F1", PALETTE["flag"], ".")):
+        v = [x if x == x else None for x in (float(x) if x is not None else float("nan") for x in vals[m])]
+        fig.add_trace(go.Bar(x=labels, y=v, name=title, marker={"color": colour, "pattern": {"shape": pattern}},
+                             text=[f"{x:.2f}" if x is not None else "—" for x in v], textposition="outside",
+                             hovertemplate=f"%{{x}}<br>{title} %{{y:.4f}}<extra></extra>"))
+    if macro is not None and macro == macro:
+        fig.add_hline(y=macro, line={"color": PALETTE["rest"], "dash": "dot", "width": 1},
+                      annotation_text=f"macro F1 {macro:.3f}", annotation_position="top right")
+    fig.update_yaxes(range=[0, 1.08], title="one-vs-rest rate", gridcolor=PALETTE["grid"])
+    fig.update_xaxes(type="category")
+    fig.update_layout(barmode="group")
+    return _layout(fig, title=f"Per-class precision, recall and F1 ({where})", width=width, height=400)
+
+
+__all__ += ["class_confusion", "slice_confusion", "per_class_bars"]

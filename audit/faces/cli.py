@@ -120,7 +120,8 @@ def build_parser() -> argparse.ArgumentParser:
                    help="multiple-testing correction: " + "; ".join(f"{k}: {v.title}" for k, v in CORRECTIONS.items()))
     s.add_argument("--interval", choices=list(INTERVALS), help="interval for rates (wilson)")
     s.add_argument("--level", type=float, help="confidence level of intervals (0.95)")
-    s.add_argument("--max-order", type=int, choices=[1, 2], help="1: single attributes; 2: pairs too (2)")
+    s.add_argument("--max-order", type=int, choices=[1, 2, 3],
+                   help="1: single attributes; 2: pairs too (2); 3: triples of values too, under pairs with enough rows")
     s.add_argument("--auc-max-order", type=int, choices=[-1, 0, 1, 2],
                    help="highest slice order with ROC AUC (1; -1 for none)")
     f = a.add_argument_group("fairness")
