@@ -25,7 +25,7 @@ from .errors import AuditInputError
 from .stats.methods import CLASS_METRICS, CORRECTION_METHODS, INTERVAL_METHODS, METRICS, MULTICLASS_ONLY
 
 #: Highest slice order (number of attributes combined).
-MAX_ORDER = 2
+MAX_ORDER = 3
 
 
 @dataclass(frozen=True)

@@ -462,46 +462,113 @@ def _triple_slots(plan: TriplePlan, f: int, codes) -> np.ndarray:
 
 
 def tally_triples(codes, cards, cell, ll=None, br=None, *, plan: TriplePlan, n_classes: int = 2,
-                  sum_names: tuple[str, ...] | None = None, kernel: str = "auto") -> Tally:
+                  loss_sums: bool = True, kernel: str = "auto", group_limit: int = 12) -> Tally:
     """Tally the kept triples of ``plan``; families stored sparsely (``Tally.slots``).
 
-    ``sum_names`` are the sums to carry (default: the binary losses when ``ll`` is given), so
-    the result can be joined to the pairs' tally of the same rows.
+    The sums are the binary losses when ``ll`` is given (none otherwise), so the result joins
+    the pairs' tally of the same rows. With ``loss_sums=False`` they are NaN: counting the
+    sums costs about three times the counts, and only a loss metric needs them.
     """
     kk = n_classes * n_classes
-    if sum_names is None:
-        sum_names = LOSS_SUMS if ll is not None else ()
+    sum_names = LOSS_SUMS if ll is not None else ()
+    loss_sums = loss_sums and ll is not None
     sizes = [len(k) for k in plan.kept]
     offsets = np.concatenate([[0], np.cumsum(sizes)]).astype(np.int64)
     total = int(offsets[-1])
     slots = {f: plan.kept[f] for f in range(len(plan.families))}
-    pruning = {"triples": plan.summary()}
+    pruning = {"triples": {**plan.summary(), "loss_sums": bool(loss_sums)}}
     fams = plan.families
-    if (n_classes == 2 and total and use_compiled(len(cell), len(fams), kernel)
-            and sum_names in (LOSS_SUMS, ())):
+    compiled = n_classes == 2 and total > 0 and use_compiled(len(cell), len(fams), kernel)
+    sums = np.full((total, len(sum_names)), np.nan)
+    if compiled and loss_sums:
         acc = _run_triple_kernel(codes, cell, ll, br, plan, offsets)
         counts = np.rint(acc[:, :kk]).astype(np.int64)
-        sums = np.ascontiguousarray(acc[:, kk:]) if sum_names else np.zeros((total, 0))
-        return Tally(fams, plan.shapes, offsets, counts, sums, n_classes, tuple(sum_names), slots=slots,
-                     pruning=pruning)
-    weights = dict(zip(LOSS_SUMS, (ll, ll * ll, br, br * br))) if sum_names == LOSS_SUMS and ll is not None else {}
-    if tuple(weights) != tuple(sum_names):
-        raise ValueError("triples carry the binary loss sums or none")
-    counts = np.zeros((total, kk), dtype=np.int64)
-    sums = np.zeros((total, len(sum_names)), dtype=np.float64)
-    cell = np.asarray(cell).astype(np.int64)
-    for f in range(len(fams)):
-        size = sizes[f]
-        if not size:
+        sums = np.ascontiguousarray(acc[:, kk:])
+    elif compiled:
+        counts = _grouped_triple_counts(codes, cards, cell, plan, offsets, group_limit)
+    else:
+        counts = np.zeros((total, kk), dtype=np.int64)
+        if loss_sums:
+            sums[:] = 0.0
+        weights = (ll, ll * ll, br, br * br) if loss_sums else ()
+        cell = np.asarray(cell).astype(np.int64)
+        for f in range(len(fams)):
+            size = sizes[f]
+            if not size:
+                continue
+            s = _triple_slots(plan, f, codes)
+            keep = s >= 0
+            sk = s[keep]
+            lo, hi = offsets[f], offsets[f + 1]
+            counts[lo:hi] = np.bincount(sk * kk + cell[keep], minlength=size * kk).reshape(size, kk)
+            for w, x in enumerate(weights):
+                sums[lo:hi, w] = np.bincount(sk, weights=x[keep], minlength=size)
+    return Tally(fams, plan.shapes, offsets, counts, sums, n_classes, sum_names, slots=slots, pruning=pruning)
+
+
+#: Largest table of group-triple cells (all threads) for the grouped triple counts, in bytes.
+TRIPLE_GROUP_BYTES = 1 << 29
+
+
+def _grouped_triple_counts(codes, cards, cell, plan: TriplePlan, offsets, limit: int) -> np.ndarray:
+    """Counts of the kept triples through triples of attribute *groups* (int32 cell counts).
+
+    Like ``_grouped_pairs``: attributes are packed into groups whose product of cardinalities
+    stays within ``limit``; each row updates one count per triple of groups (84 instead of 220
+    for the 12-attribute benchmark table) and each attribute triple is a margin of the table
+    of a group triple holding it. Measured in bench/triples_bench.py: limits 8, 12, 16, 24.
+    """
+    import numba
+
+    from .kernels import _group_triple_counts
+
+    kk = 4
+    nth = max(1, min(numba.get_num_threads(), 1 + len(cell) // 50_000))
+    groups = plan_groups(cards, limit)
+    gcards = [math.prod(cards[a] for a in g) for g in groups]
+
+    def cells(gs, gc):
+        return sum(gc[a] * gc[b] * gc[c] for a in range(len(gs)) for b in range(a + 1, len(gs))
+                   for c in range(b + 1, len(gs)))
+
+    if len(groups) < 3 or cells(groups, gcards) * kk * 4 * nth > TRIPLE_GROUP_BYTES:
+        groups, gcards = [[a] for a in range(len(cards))], list(cards)
+    if cells(groups, gcards) * kk * 4 * nth > TRIPLE_GROUP_BYTES:
+        return tally_triples(codes, cards, cell, plan=plan, kernel="numpy").counts
+    where = {a: gi for gi, g in enumerate(groups) for a in g}
+    ng = len(groups)
+    gtr = [(a, b, c) for a in range(ng) for b in range(a + 1, ng) for c in range(b + 1, ng)]
+    gsizes = [gcards[a] * gcards[b] * gcards[c] for a, b, c in gtr]
+    goff = np.concatenate([[0], np.cumsum(gsizes)]).astype(np.int64)
+    gdt = np.uint16 if max(gcards) <= 65535 else np.int64
+    gt = np.empty((ng, len(cell)), dtype=gdt)
+    for q, g in enumerate(groups):
+        v = gt[q]
+        np.copyto(v, codes[g[0]], casting="unsafe")
+        for a in g[1:]:
+            np.multiply(v, gdt(cards[a]), out=v)
+            np.add(v, codes[a], out=v, casting="unsafe")
+    col = lambda i: np.array([t[i] for t in gtr], dtype=np.int64)  # noqa: E731
+    acc = _group_triple_counts(gt, cell.astype(np.int8, copy=False), col(0), col(1), col(2),
+                               np.array([gcards[t[1]] for t in gtr], dtype=np.int64),
+                               np.array([gcards[t[2]] for t in gtr], dtype=np.int64),
+                               goff[:-1].copy(), int(goff[-1]), nth, KERNEL_BLOCK)
+    acc = acc.astype(np.int64).sum(axis=0).reshape(-1, kk) if nth > 1 else acc[0].astype(np.int64).reshape(-1, kk)
+    out = np.zeros((int(offsets[-1]), kk), dtype=np.int64)
+    for f, fam in enumerate(plan.families):
+        if not len(plan.kept[f]):
             continue
-        s = _triple_slots(plan, f, codes)
-        keep = s >= 0
-        sk = s[keep]
-        lo, hi = offsets[f], offsets[f + 1]
-        counts[lo:hi] = np.bincount(sk * kk + cell[keep], minlength=size * kk).reshape(size, kk)
-        for w, name in enumerate(sum_names):
-            sums[lo:hi, w] = np.bincount(sk, weights=weights[name][keep], minlength=size)
-    return Tally(fams, plan.shapes, offsets, counts, sums, n_classes, tuple(sum_names), slots=slots, pruning=pruning)
+        need = sorted({where[a] for a in fam})
+        gtrip = next(t for t in gtr if all(g in t for g in need))
+        q = gtr.index(gtrip)
+        axes_attrs = groups[gtrip[0]] + groups[gtrip[1]] + groups[gtrip[2]]
+        block = acc[goff[q]:goff[q + 1]].reshape([cards[a] for a in axes_attrs] + [kk])
+        pos = [axes_attrs.index(a) for a in fam]
+        summed = block.sum(axis=tuple(ax for ax in range(len(axes_attrs)) if ax not in pos))
+        order = np.argsort(np.argsort(pos))  # axes of ``summed`` follow sorted(pos)
+        summed = summed.transpose(list(order) + [3])
+        out[offsets[f]:offsets[f + 1]] = summed.reshape(-1, kk)[plan.kept[f]]
+    return out
 
 
 def _run_triple_kernel(codes, cell, ll, br, plan: TriplePlan, offsets) -> np.ndarray:

@@ -41,3 +41,16 @@ def flag_and_rank(cols: Mapping[str, np.ndarray], *, alpha: float, higher_is_wor
     rank[idx[order]] = np.arange(1, len(idx) + 1)
     return {"worse_than_rest": tested & worse, "flagged": flagged, "severity": sev,
             "rank": pd.arrays.IntegerArray(rank, ~tested)}
+
+
+def rank_among(members: np.ndarray, severity: np.ndarray, p_value: np.ndarray) -> pd.arrays.IntegerArray:
+    """Ranks 1, 2, ... of the ``members`` (a boolean mask) by ``severity`` (largest first), ties by
+    p-value then table position; empty for the others. Used for the flagged slices and the
+    findings, ranked by the conservative end of their selection-adjusted interval."""
+    members = np.asarray(members, dtype=bool)
+    idx = np.flatnonzero(members)
+    sev = np.asarray(severity, dtype=float)[idx]
+    order = np.lexsort((idx, np.asarray(p_value, dtype=float)[idx], -np.where(np.isnan(sev), -np.inf, sev)))
+    rank = np.zeros(len(members), dtype=np.int64)
+    rank[idx[order]] = np.arange(1, len(idx) + 1)
+    return pd.arrays.IntegerArray(rank, ~members)

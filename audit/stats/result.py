@@ -79,6 +79,21 @@ class AuditResult:
         f = self.slices[self.slices["flagged"]]
         return f.sort_values("rank", kind="stable")
 
+    def findings(self) -> pd.DataFrame:
+        """Findings (flagged slices no other flagged slice explains), worst first by the
+        conservative end of their selection-adjusted interval (``finding_rank``), with
+        ``echoes``: how many flagged slices fold under each (see ``audit.stats.findings``)."""
+        s = self.slices
+        f = s[s["finding"]].sort_values("finding_rank", kind="stable").copy()
+        counts = s.loc[s["echo_of"] != "", "echo_of"].value_counts()
+        f["echoes"] = f["slice"].map(counts).fillna(0).astype(int).to_numpy()
+        return f
+
+    def echoes(self, name: str) -> pd.DataFrame:
+        """The flagged slices folded under finding ``name`` (``echo_of``), by their flag rank."""
+        s = self.slices
+        return s[s["echo_of"] == self.slice(name)["slice"]].sort_values("flag_rank", kind="stable")
+
     def ranked(self) -> pd.DataFrame:
         """Tested slices, worst first."""
         return self.tested().sort_values("rank", kind="stable")

@@ -7,6 +7,7 @@ other machines) gives the same result.
 from __future__ import annotations
 
 import time
+from dataclasses import replace
 from typing import Any, Sequence
 
 import numpy as np
@@ -21,7 +22,8 @@ from .correct import adjust
 from .intervals import f1_interval, mean_interval, mover_difference, proportion_interval, welch_difference
 from .measure import METRICS, RATE_COLUMNS, RATES, count_frame, metric_values
 from .methods import COUNT_WORDS, metric_for
-from .rank import flag_and_rank
+from .findings import explain, selection_level, slice_keys
+from .rank import badness, flag_and_rank, rank_among
 from .result import ALL, AuditResult
 
 
@@ -38,6 +40,22 @@ def _names(fam: tuple[int, ...], attrs: Sequence[AttributeCoding]) -> tuple[list
     names = [f"{a.name}={x} & {b.name}={y}" for x in a.levels for y in b.levels]
     va = [x for x in a.levels for _ in b.levels]
     return names, [a.name] * size, va, [b.name] * size, list(b.levels) * a.cardinality
+
+
+def _names_at(fam: tuple[int, ...], attrs: Sequence[AttributeCoding], pos: np.ndarray) -> list[list]:
+    """Slice names and attribute/value columns (three positions) of a sparsely stored family."""
+    cards = [attrs[a].cardinality for a in fam]
+    codes, rest = [], np.asarray(pos, dtype=np.int64)
+    for c in reversed(cards):  # mixed radix, first attribute most significant
+        codes.append(rest % c)
+        rest = rest // c
+    codes = codes[::-1]
+    vals = [[attrs[a].levels[int(x)] for x in cs] for a, cs in zip(fam, codes)]
+    names = [" & ".join(f"{attrs[a].name}={v[r]}" for a, v in zip(fam, vals)) for r in range(len(pos))]
+    out = [names]
+    for j in range(3):
+        out += [[attrs[fam[j]].name] * len(pos), vals[j]] if j < len(fam) else [[""] * len(pos), [""] * len(pos)]
+    return out
 
 
 def _metric_block(cfg: AuditConfig, c: dict, rc: dict, v: dict, rv: dict, sums, rsums) -> dict[str, np.ndarray]:
@@ -164,13 +182,22 @@ def summarize(tl: Tally, fitted: Fitted, cfg: AuditConfig, *, source: SourceInfo
             auc_bound = float(np.nanmax(bound)) if np.isfinite(bound).any() else 0.0
     auc = auc[rows]
     n_rows = int(counts[order == 0][0].sum())
-    names, a1, v1, a2, v2 = [], [], [], [], []
+    names, a1, v1, a2, v2, a3, v3 = [], [], [], [], [], [], []
+    fam_row, pos_row = [], []
     for q in keep_fam:
-        nm, x1, y1, x2, y2 = _names(families[q], attrs)
-        names += nm; a1 += x1; v1 += y1; a2 += x2; v2 += y2
+        pos = tl.positions(q)
+        if q in tl.slots:
+            nm, x1, y1, x2, y2, x3, y3 = _names_at(families[q], attrs, pos)
+        else:
+            nm, x1, y1, x2, y2 = _names(families[q], attrs)
+            x3 = y3 = [""] * len(nm)
+        names += nm; a1 += x1; v1 += y1; a2 += x2; v2 += y2; a3 += x3; v3 += y3
+        fam_row.append(np.full(len(pos), q))
+        pos_row.append(pos)
     keep = (counts.sum(axis=1) > 0) | (order == 0)
     idx = np.flatnonzero(keep)
     counts, order, auc = counts[idx], order[idx], auc[idx]
+    fam_row, pos_row = np.concatenate(fam_row)[idx], np.concatenate(pos_row)[idx]
     if sums is not None:
         sums = sums[idx]
     rest = counts[order == 0][0][None, :] - counts
@@ -180,17 +207,25 @@ def summarize(tl: Tally, fitted: Fitted, cfg: AuditConfig, *, source: SourceInfo
         "slice": np.asarray(names, dtype=object)[idx], "order": order,
         "attribute_1": np.asarray(a1, dtype=object)[idx], "value_1": np.asarray(v1, dtype=object)[idx],
         "attribute_2": np.asarray(a2, dtype=object)[idx], "value_2": np.asarray(v2, dtype=object)[idx],
+        "attribute_3": np.asarray(a3, dtype=object)[idx], "value_3": np.asarray(v3, dtype=object)[idx],
     }
+    def contrast(ca, cb, sa, sb, *, level: float | None = None) -> dict:
+        """The audited metric's comparison of slices ``ca`` and ``cb`` (counts and sums)."""
+        cf = cfg if level is None else replace(cfg, level=level)
+        if k_cls == 2:
+            x, y = count_frame(ca), count_frame(cb)
+            return _metric_block(cf, x, y, metric_values(x, sa), metric_values(y, sb), sa, sb)
+        from . import multiclass
+
+        return multiclass.metric_block(cf, m, ca, cb, sa, sb, fitted.outcomes.classes)
+
     if k_cls == 2:
         cols.update(_binary_columns(counts, rest, sums, rsums, auc, cfg, n_rows))
-        c = count_frame(counts)
-        rc = count_frame(rest)
-        mb = _metric_block(cfg, c, rc, metric_values(c, sums), metric_values(rc, rsums), sums, rsums)
     else:
         from . import multiclass
 
         cols.update(multiclass.columns(counts, sums, fitted.outcomes.classes, cfg, n_rows))
-        mb = multiclass.metric_block(cfg, m, counts, rest, sums, rsums, fitted.outcomes.classes)
+    mb = contrast(counts, rest, sums, rsums)
     n_slice, rest_n = counts.sum(axis=1), rest.sum(axis=1)
     cols["metric"] = np.full(len(idx), cfg.metric, dtype=object)
     cols["rest_n"] = rest_n
@@ -228,6 +263,8 @@ def summarize(tl: Tally, fitted: Fitted, cfg: AuditConfig, *, source: SourceInfo
     cols["status"] = status
     cols["status_reason"] = reason
     cols.update(flag_and_rank(cols, alpha=cfg.alpha, higher_is_worse=m.higher_is_worse))
+    roles = _roles(cols, counts, sums, rest, rsums, fam_row, pos_row, families, fitted.cards, contrast, cfg,
+                   m.higher_is_worse, m_family)
     df = pd.DataFrame(cols)
 
     whole = df.iloc[0]
@@ -254,6 +291,13 @@ def summarize(tl: Tally, fitted: Fitted, cfg: AuditConfig, *, source: SourceInfo
     }
     if auc_bound is not None:
         method["roc_auc_error_bound"] = auc_bound
+    method["explanations"] = roles
+    if "triples" in tl.pruning:
+        tri = dict(tl.pruning["triples"])
+        o3 = df["order"] == 3
+        tri.update(listed=int(o3.sum()), tested=int((o3 & (df["status"] == "tested")).sum()),
+                   flagged=int((o3 & df["flagged"]).sum()))
+        method["triples"] = tri
     fairness = None
     if fitted.protected:
         from .fairness import assess
@@ -279,6 +323,49 @@ def summarize(tl: Tally, fitted: Fitted, cfg: AuditConfig, *, source: SourceInfo
                        n_unlabelled=fitted.n_unlabelled, method=method, tally=tl)
 
 
+
+
+def _roles(cols, counts, sums, rest, rsums, fam_row, pos_row, families, cards, contrast, cfg, higher_is_worse,
+           m_family) -> dict[str, Any]:
+    """Adds ``diff_low_adj``, ``diff_high_adj``, ``severity_adj``, ``flag_rank``, ``finding``,
+    ``explained_by``, ``echo_of``, ``finding_rank`` to ``cols`` (see ``findings``); returns the
+    numbers the method notes print."""
+    n = len(counts)
+    flagged = np.asarray(cols["flagged"], dtype=bool)
+    f_idx = np.flatnonzero(flagged)
+    # The selection is every rejection of the correction (better or worse than the rest): with
+    # BH each has p <= R*alpha/m, so an interval at that level excludes no difference (for the
+    # Welch test exactly; for rates up to the difference between the test and the MOVER interval).
+    selected = int(np.sum(np.asarray(cols["q_value"], dtype=float) <= cfg.alpha))
+    lvl = selection_level(selected, m_family, cfg.alpha)
+    lo_adj, hi_adj = np.full(n, np.nan), np.full(n, np.nan)
+    if len(f_idx):
+        # Benjamini & Yekutieli (2005): level 1 - R*alpha/m for the R selected of m tested.
+        adj = contrast(counts[f_idx], rest[f_idx], None if sums is None else sums[f_idx],
+                       None if rsums is None else rsums[f_idx], level=lvl)
+        lo_adj[f_idx], hi_adj[f_idx] = adj["diff_low"], adj["diff_high"]
+    sev_adj = np.where(flagged, badness(lo_adj, hi_adj, higher_is_worse=higher_is_worse), np.nan)
+    cols["diff_low_adj"], cols["diff_high_adj"], cols["severity_adj"] = lo_adj, hi_adj, sev_adj
+    cols["flag_rank"] = rank_among(flagged, sev_adj, cols["p_value"])
+    keys = slice_keys(families, fam_row, pos_row, cards, f_idx)
+    rank = np.asarray(cols["rank"].to_numpy(dtype=float, na_value=np.nan))
+    ex = explain(keys, counts, sums, whole=counts[0], whole_sums=None if sums is None else sums[0],
+                 severity=np.asarray(cols["severity"], dtype=float), rank=rank, contrast=contrast,
+                 alpha=cfg.alpha, correction=cfg.correction, higher_is_worse=higher_is_worse,
+                 min_rows=cfg.min_support, min_metric_rows=cfg.min_metric_support)
+    finding = np.zeros(n, dtype=bool)
+    finding[ex["finding"]] = True
+    names = np.asarray(cols["slice"], dtype=object)
+    by, echo = np.full(n, "", dtype=object), np.full(n, "", dtype=object)
+    for r, o in ex["explained_by"].items():
+        by[r] = names[o]
+    for r, o in ex["echo_of"].items():
+        echo[r] = names[o]
+    cols["finding"], cols["explained_by"], cols["echo_of"] = finding, by, echo
+    cols["finding_rank"] = rank_among(finding, sev_adj, cols["p_value"])
+    return {"flagged": int(len(f_idx)), "selected": selected, "findings": int(finding.sum()), "echoes": int(len(ex["echo_of"])),
+            "nested_couples": ex["info"]["couples"], "explanation_tests": ex["info"]["tests"],
+            "selection_level": None if lvl != lvl else float(lvl)}
 
 
 def _num(x) -> float | None:
