@@ -27,7 +27,7 @@ __all__ = ["run", "AuditResult", "ALL", "fit", "summarize", "Tally", "Fitted"]
 
 
 def run(data: pd.DataFrame | str | os.PathLike, *, source: SourceInfo | None = None, progress: Progress | None = None,
-        kernel: str = "auto", **settings: Any) -> AuditResult:
+        kernel: str = "auto", engine: str = "local", scheduler: Any = None, **settings: Any) -> AuditResult:
     """Audit a binary classifier's predictions slice by slice.
 
     Parameters
@@ -77,6 +77,13 @@ def run(data: pd.DataFrame | str | os.PathLike, *, source: SourceInfo | None = N
         Read a file in chunks of this many rows.
     kernel : {"auto", "compiled", "numpy"}
         Tally kernel (results are identical; "auto" compiles for large tables).
+    engine : {"local", "dask"}
+        Where the two passes run: in this process, or on a Dask cluster whose workers read
+        their own parts of the file (``data`` must then be a path). Not a setting: the
+        numbers are the same as a run in chunks here, and it is not written to fissure.toml.
+    scheduler : str or distributed.Client, optional
+        With ``engine="dask"``: the scheduler's address (``tcp://host:8786``) or a client;
+        without it a local cluster is started and shut down.
 
     Returns
     -------
@@ -96,19 +103,38 @@ def run(data: pd.DataFrame | str | os.PathLike, *, source: SourceInfo | None = N
     cfg = settings_from(settings)
     note = progress or (lambda stage, frac: None)
     note("checking input", 0.0)
-    src = open_source(data, chunk_rows=cfg.chunk_rows, encoding=cfg.encoding)
-    if source is not None:
-        src.info = source
-    keep: dict = {}
-    fitted = fit(src, cfg, progress=note, keep=keep)
-    timings = {"input": time.perf_counter() - t0}
-    note("counting slices", 0.2)
-    t = time.perf_counter()
-    tl = tally_source(src, fitted, cfg, keep=keep, kernel=kernel, progress=note)
-    timings["tally"] = time.perf_counter() - t
-    note("intervals and tests", 0.7)
+    if engine not in ("local", "dask"):
+        raise AuditInputError(f"engine must be 'local' or 'dask'; received {engine!r}", setting="engine")
+    # Progress: the first pass is 5-45% of the bar, the second 45-90% (each reports per chunk).
+    first_pass = lambda stage, frac: note(stage, 0.05 + 0.4 * frac)  # noqa: E731
+    second_pass = lambda stage, frac: note(stage, 0.45 + 0.45 * frac)  # noqa: E731
+    if engine == "dask" or scheduler is not None:
+        from .core.distributed import DaskRun
+
+        with DaskRun(data, cfg, scheduler=scheduler, progress=first_pass, kernel=kernel) as d:
+            fitted = d.fit()
+            timings = {"input": time.perf_counter() - t0}
+            note("counting slices", 0.45)
+            t = time.perf_counter()
+            d.note = second_pass
+            tl = d.tally(fitted)
+            timings["tally"] = time.perf_counter() - t
+            info = source or d.info
+    else:
+        src = open_source(data, chunk_rows=cfg.chunk_rows, encoding=cfg.encoding)
+        if source is not None:
+            src.info = source
+        keep: dict = {}
+        fitted = fit(src, cfg, progress=first_pass, keep=keep)
+        timings = {"input": time.perf_counter() - t0}
+        note("counting slices", 0.45)
+        t = time.perf_counter()
+        tl = tally_source(src, fitted, cfg, keep=keep, kernel=kernel, progress=second_pass)
+        timings["tally"] = time.perf_counter() - t
+        info = src.info
+    note("intervals and tests", 0.9)
     cfg = _resolved(cfg, fitted)
-    res = summarize(tl, fitted, cfg, source=src.info, timings=timings, t0=t0)
+    res = summarize(tl, fitted, cfg, source=info, timings=timings, t0=t0)
     note("done", 1.0)
     return res
 

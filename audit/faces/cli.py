@@ -145,6 +145,12 @@ def build_parser() -> argparse.ArgumentParser:
     o.add_argument("--chunk-rows", type=int, metavar="N",
                    help="read the file N rows at a time (memory bounded by the chunk, not the file); a "
                         "folder of Parquet files or a glob of CSV files is always read in chunks")
+    o.add_argument("--engine", choices=["local", "dask"], default="local",
+                   help="where to compute: in this process (local), or on a Dask cluster whose workers read their "
+                        "own parts of the file and send back tallies, not rows (dask; pip install 'fissure[dask]')")
+    o.add_argument("--scheduler", metavar="ADDRESS",
+                   help="with --engine dask: the Dask scheduler to use, e.g. tcp://10.0.0.5:8786 (default: a local "
+                        "cluster started and stopped for this run)")
     o.add_argument("--out", default="fissure-out",
                    help="output folder (fissure-out): new, empty, or holding a previous Fissure run, whose files "
                         "this run replaces")
@@ -222,7 +228,9 @@ def audit_command(args: argparse.Namespace, argv: Sequence[str]) -> int:
 
     bar = _Bar(not args.quiet)
     try:
-        result = run(args.data, progress=bar, **settings)
+        if args.scheduler and args.engine != "dask":
+            raise AuditInputError("--scheduler needs --engine dask")
+        result = run(args.data, progress=bar, engine=args.engine, scheduler=args.scheduler, **settings)
     finally:
         bar.close()
     created = now_utc()  # one timestamp for every file of the run

