@@ -352,3 +352,24 @@ def test_skipped_attribute_names_are_quoted():
     with pytest.raises(AuditInputError) as e:
         audit.run(df, label="y", score="p")
     assert "\n" not in str(e.value), str(e.value)
+
+
+# ----------------------------------------------------------------------------------------------
+# the chunked reader: mutated files read in chunks end in a result or the one-line error
+
+
+@pytest.mark.parametrize("fmt", ["csv", "csv.gz", "parquet"])
+@fuzz(default=20)
+@given(data=st.data(), chunk=st.integers(1, 50))
+def test_mutated_files_read_in_chunks(fmt, data, chunk):
+    blob = data.draw(mutated_file(fmt))
+    with tempfile.TemporaryDirectory() as d:
+        path = os.path.join(d, f"t.{fmt}")
+        with open(path, "wb") as fh:
+            fh.write(blob)
+        try:
+            res = audit.run(path, label="y", score="p", chunk_rows=chunk, max_order=1)
+        except AuditInputError as exc:
+            assert "\n" not in str(exc) and "\r" not in str(exc), str(exc)
+            return
+        assert res.n_rows > 0
