@@ -164,20 +164,68 @@ class CsvSource(Source):
     block and held for every later block, so a column cannot change type between chunks."""
 
     def __init__(self, path: str, chunk_rows: int, *, encoding: str | None = None):
+        from .read import _check_codec
+
         self.files = _expand(path, (".csv", ".tsv", ".txt", ".csv.gz", ".csv.bz2", ".csv.xz", ".csv.zip"))
         self.chunk_rows = chunk_rows
-        self.encoding = encoding or "utf-8"
+        codec = _check_codec(encoding)
+        self.encoding = codec.name if codec is not None else "utf-8-sig"
+        self._seps = {f: self._inspect(f) for f in self.files}
         digest, size = _digest(self.files)
         self.info = SourceInfo(os.path.basename(path.rstrip("/")) or path, digest, size)
         self._dtypes: dict[str, Any] | None = None
 
+    def _inspect(self, f: str) -> str:
+        """Check the start of a file as the whole-file reader does (binary files named .csv, the
+        text encoding, the width of the header) and pick its delimiter from the header line."""
+        import bz2
+        import gzip
+        import lzma
+        import zipfile
+
+        from .read import MAX_COLUMNS, _pick_delimiter, _sniff_binary
+
+        low = f.lower()
+        name = shown(os.path.basename(f))
+        try:
+            if low.endswith(".zip"):
+                with zipfile.ZipFile(f) as zf:
+                    members = zf.namelist()
+                    if len(members) != 1:
+                        raise AuditInputError(f"input file {name} holds {len(members)} files; expected one CSV")
+                    with zf.open(members[0]) as fh:
+                        head = fh.read(1 << 20)
+            else:
+                opener = {".gz": gzip.open, ".bz2": bz2.open, ".xz": lzma.open}.get(os.path.splitext(low)[1], open)
+                with opener(f, "rb") as fh:
+                    head = fh.read(1 << 20)
+        except AuditInputError:
+            raise
+        except Exception as exc:  # a damaged archive: one line
+            raise AuditInputError(f"input file {name} cannot be unpacked ({type(exc).__name__})") from None
+        if not head.strip():
+            raise AuditInputError(f"input file {name} is empty")
+        if not low.endswith((".gz", ".bz2", ".xz", ".zip")):
+            _sniff_binary(head, name)
+        line = head.split(b"\n", 1)[0]
+        try:
+            header = line.decode(self.encoding)
+        except UnicodeDecodeError as exc:
+            raise AuditInputError(f"input file {name} is not {self.encoding.replace('-sig', '')} text at byte "
+                                  f"{exc.start} of its header; pass encoding=... (--encoding NAME)",
+                                  setting="encoding") from None
+        sep = _pick_delimiter(header, low.endswith((".tsv", ".tsv.gz")))
+        if header.count(sep) + 1 > MAX_COLUMNS:
+            raise AuditInputError(f"input file {name} has more than {MAX_COLUMNS:,} columns")
+        return sep
+
     def _reader(self, f: str, dtypes=None):
-        sep = "\t" if f.lower().endswith((".tsv", ".tsv.gz")) else ","
-        return pd.read_csv(f, sep=sep, chunksize=self.chunk_rows, dtype=dtypes, encoding=self.encoding,
+        return pd.read_csv(f, sep=self._seps[f], chunksize=self.chunk_rows, dtype=dtypes, encoding=self.encoding,
                            encoding_errors="strict", low_memory=False)
 
     def chunks(self, columns=None):
         offset = 0
+        f = self.files[0]
         try:
             if self._dtypes is None:
                 first = next(iter(self._reader(self.files[0])), None)
