@@ -14,7 +14,8 @@ import shutil
 import subprocess
 import tempfile
 
-from .prose import CAUTION, fairness_findings, finding_text, fmt_p, limitations, method_notes
+from .prose import (CAUTION, DRIVERS_RULE, class_drivers, fairness_findings, finding_text, fmt_p, is_multiclass,
+                    limitations, method_notes, prediction_words)
 
 SECTIONS = [
     ("opening", "1. Summary for the reviewer"),
@@ -128,7 +129,8 @@ def plotly_script() -> tuple[str, str]:
 
 #: Words for the metric keys the tables show.
 _TITLES = {"roc_auc": "ROC AUC", "brier": "Brier score", "log_loss": "mean log loss", "f1": "F1",
-           "f1_neg": "F1 of the negative class", "macro_f1": "macro F1", "jaccard": "Jaccard index",
+           "f1_neg": "F1 of the negative class", "macro_f1": "macro F1", "micro_f1": "micro F1",
+           "weighted_f1": "support-weighted F1", "jaccard": "Jaccard index",
            "selection_rate": "selection rate (share predicted positive)",
            "base_rate": "base rate (share actually positive)"}
 
@@ -178,7 +180,9 @@ def build_html(result, *, command: str | None = None, created: str | None = None
     gate = gate or evaluate_gate(result)
     st = result.status_counts()
     lvl = int(round(cfg.level * 100))
-    neg, pos = (str(c) for c in result.classes)
+    multi = is_multiclass(result)
+    classes = [str(c) for c in result.classes]
+    neg, pos = ("", "") if multi else classes
     parts: list[str] = []
     title = f"Slice audit of {cfg.model_name}" if cfg.model_name else "Slice audit"
     flagged = result.flagged()
@@ -190,10 +194,12 @@ def build_html(result, *, command: str | None = None, created: str | None = None
 
     # 1. opening: what was audited, what needs a decision, the gate, what to do next
     fair_groups = len(found.drop_duplicates(["attribute", "group"])) if len(found) else 0
-    audited = (f"{e(cfg.model_name or 'A binary classifier')}"
+    label_words = (f"{len(classes)} classes ({', '.join(e(c) for c in classes)}), predicted as "
+                   f"{e(prediction_words(result))}" if multi else f"positive class <b>{e(pos)}</b>")
+    audited = (f"{e(cfg.model_name or ('A classifier' if multi else 'A binary classifier'))}"
                + (f" (version {e(cfg.model_version)})" if cfg.model_version else "")
                + f" on <b>{result.n_rows:,}</b> rows of {e(src.name or 'an in-memory table')}: true label "
-               f"<code>{e(cfg.label)}</code>, positive class <b>{e(pos)}</b>; audited metric <b>{e(m.title)}</b> "
+               f"<code>{e(cfg.label)}</code>, {label_words}; audited metric <b>{e(m.title)}</b> "
                f"over {len(result.attributes)} attribute(s) and their pairs ({st.get('tested', 0):,} slices "
                f"tested, corrected with {e(notes['correction']['title'])} at {cfg.alpha:g}).")
     if fr is not None:
@@ -247,6 +253,12 @@ def build_html(result, *, command: str | None = None, created: str | None = None
             ("Prediction", e(f"column '{cfg.pred}'") if result.prediction_source == "column"
              else e(f"probability column '{cfg.score}' ≥ threshold {cfg.threshold:g}")),
             ("Probability column", e(cfg.score or "(none)"))]
+    if multi:
+        rows[4:] = [("Classes", f"{len(classes)}: " + ", ".join(f"<b>{e(c)}</b>" for c in classes)
+                     + " (no positive class: each class is measured one versus the rest)"),
+                    ("Prediction", e(prediction_words(result))),
+                    ("Probability columns", e(", ".join(f"{c}: {col}" for c, col in cfg.score.items())
+                                              if isinstance(cfg.score, dict) else (cfg.score or "(none)")))]
     data_html = _table(["item", "value"], rows)
     arows = []
     for a in result.attributes:
@@ -261,15 +273,24 @@ def build_html(result, *, command: str | None = None, created: str | None = None
 
     # 4. method
     frows = [[e(_title(k)), e(v)] for k, v in notes["formulas"].items()]
-    meth = (f"<p>Audited metric: <b>{e(m.title)}</b> = {e(m.formula)}; "
+    meth = ((f"<p>Audited metric: <b>{e(m.title)}</b> = {e(m.formula)}; "
             f"{'higher' if m.higher_is_worse else 'lower'} is worse. In the formulas, tp, fp, fn and tn count "
             f"true positives (actual {e(pos)}, predicted {e(pos)}), false positives (actual {e(neg)}, predicted "
             f"{e(pos)}), false negatives (actual {e(pos)}, predicted {e(neg)}) and true negatives; n counts "
             f"rows; p is the predicted probability of {e(pos)} and y is 1 for actual {e(pos)}.</p>"
+            if not multi else
+            f"<p>Audited metric: <b>{e(m.title)}</b> = {e(m.formula)}; "
+            f"{'higher' if m.higher_is_worse else 'lower'} is worse. The label has {len(classes)} classes and no "
+            f"positive class; the prediction is {e(prediction_words(result))}. In the formulas, for each class c, "
+            f"tp_c counts rows of true class c predicted c, fp_c rows predicted c whose true class is another, fn_c "
+            f"rows of true class c predicted another class; n counts rows; p_ic is the predicted probability of "
+            f"class c for row i and y_ic is 1 when row i's true class is c. Per-class rates are proportions and get "
+            f"the same intervals and tests as two-class rates.</p>")
             + _table(["metric", "formula"], frows)
             + _table(["step", "method"], [
                 ["Intervals for rates", e(f"{notes['interval']['title']} at {lvl}% ({notes['interval']['reference']})")],
-                ["Interval for F1", e(notes["interval"]["f1"])], ["Intervals for mean losses", e(notes["interval"]["means"])],
+                ["Interval for F1", e(notes["interval"]["f1"])],
+                *([["Interval for macro-F1", e(notes["interval"]["macro_f1"])]] if multi else []), ["Intervals for mean losses", e(notes["interval"]["means"])],
                 ["Interval of slice − rest", e(notes["interval"]["differences"])],
                 ["Test of slice against rest", e(notes["test"])], ["Effect size", e(notes["effect_size"])],
                 ["Multiple-testing correction", e(f"{notes['correction']['title']}: controls the "
@@ -286,7 +307,10 @@ def build_html(result, *, command: str | None = None, created: str | None = None
     # 5. findings
     o = result.overall
     orows = []
-    for k in ["accuracy", "error_rate", "precision", "recall", "specificity", "fpr", "fnr", "f1", "log_loss", "brier"]:
+    keys = (["accuracy", "error_rate", "macro_f1", "micro_f1", "weighted_f1", "macro_precision", "macro_recall",
+             "log_loss", "brier"] if multi else
+            ["accuracy", "error_rate", "precision", "recall", "specificity", "fpr", "fnr", "f1", "log_loss", "brier"])
+    for k in keys:
         if o.get(k) is None:
             continue
         ci = f"[{_f(o.get(k + '_low'))}, {_f(o.get(k + '_high'))}]" if o.get(k + "_low") is not None else "—"
@@ -295,11 +319,15 @@ def build_html(result, *, command: str | None = None, created: str | None = None
         orows.append(["ROC AUC", _f(o["roc_auc"]), "—"])
     find = f"<h3>The whole table ({result.n_rows:,} rows)</h3>" + _table(["metric", "value", f"{lvl}% interval"], orows,
                                                                          num_cols=(1,))
-    find += _figure(charts.confusion(o, result.classes, title="Confusion matrix, whole table"), "fig-confusion",
-                    f"Rows are the true class, columns the prediction; the diagonal holds correct predictions. "
-                    f"The two other cells are the two kinds of error (actual {neg} predicted {pos}, actual {pos} "
-                    f"predicted {neg}) that the slice tables break down by group.")
-    n_charts += 1
+    if multi:
+        find, k = _multiclass_whole(result, find)
+        n_charts += k
+    else:
+        find += _figure(charts.confusion(o, result.classes, title="Confusion matrix, whole table"), "fig-confusion",
+                        f"Rows are the true class, columns the prediction; the diagonal holds correct predictions. "
+                        f"The two other cells are the two kinds of error (actual {neg} predicted {pos}, actual {pos} "
+                        f"predicted {neg}) that the slice tables break down by group.")
+        n_charts += 1
     find += ("<p>" + f"Slices tested: <b>{st.get('tested', 0)}</b> (family size m = {result.family_size}); below "
              f"support: <b>{st.get('below_support', 0)}</b>; without enough rest: {st.get('no_rest', 0)}; undefined: "
              f"{st.get('undefined', 0)}; <span class='flag'>flagged: {st['flagged']}</span>.</p>")
@@ -314,6 +342,10 @@ def build_html(result, *, command: str | None = None, created: str | None = None
                            "adjusted p"], frows, num_cols=(0, 2, 3, 5, 7)))
         if len(flagged) > top:
             find += f"<p class='muted'>All {len(flagged)} flagged slices are listed in slices.csv.</p>"
+        if multi:
+            drive, k = _drivers_html(result, flagged.head(top))
+            find += drive
+            n_charts += k
     else:
         find += "<p>No slice was flagged at the chosen settings.</p>"
     if len(result.ranked()):
@@ -322,13 +354,16 @@ def build_html(result, *, command: str | None = None, created: str | None = None
                         f"its {lvl}% interval; the grey tick is the same metric for all other rows. Orange "
                         f"diamonds are flagged: the gap to the tick is larger than chance explains after the "
                         f"correction. A wide interval means few rows: read its far end, not the marker.")
+        n_charts += 1
+    if len(result.ranked()) and not (multi and m.kind != "mean"):
+        # The chance band of a multi-class rate needs the engine's band for K classes (not there yet).
         find += _figure(charts.noise_band(result), "fig-noise",
                         f"Each point is a tested slice, placed by its number of rows (log scale) and its "
                         f"{m.title}. The shaded band is where a slice of that size would land by chance alone if "
                         f"it were like the whole table; small slices scatter widely without meaning anything. "
                         f"Points far outside the band on the bad side are the ones to read; the orange ones "
                         f"survived the correction for {result.family_size} tests.")
-        n_charts += 2
+        n_charts += 1
     pair = charts.worst_pair(result)
     if pair:
         find += _figure(charts.pair_heatmap(result, *pair), "fig-pair",
@@ -449,11 +484,18 @@ def _fairness_section(result, found, lvl: int) -> tuple[str, int]:
     from . import charts
 
     fr = result.fairness
-    neg, pos = (str(c) for c in result.classes)
     fav = str(fr.favorable)
+    if is_multiclass(result):
+        # One versus rest for the favourable set: it plays the positive class in every criterion.
+        pos, neg, fav_pos = fav, f"a class other than {fav}", True
+        role = " (one or more classes; every criterion below is computed one versus the rest for this set)"
+    else:
+        neg, pos = (str(c) for c in result.classes)
+        fav_pos = fr.favorable_is_positive
+        role = " (the positive prediction)" if fav_pos else " (the negative prediction)"
     unfav = pos if fav == neg else neg
     parts = [f"<p>Favourable outcome: predicted <b>{e(fav)}</b>"
-             + (" (the positive prediction)" if fr.favorable_is_positive else " (the negative prediction)")
+             + role
              + f". The <b>selection rate</b> is the share of a group predicted {e(fav)}; TPR is the share of actual "
                f"{e(pos)} predicted {e(pos)}, FPR the share of actual {e(neg)} predicted {e(pos)}, PPV the share of "
                f"predicted {e(pos)} that are actual {e(pos)}. Reference group per attribute: the one with the highest "
@@ -466,9 +508,9 @@ def _fairness_section(result, found, lvl: int) -> tuple[str, int]:
              f"or it fails the four-fifths check. Each flag says which way it points: a group is <span "
              f"class='flag'>at a disadvantage</span> when its members get the favourable prediction ({e(fav)}) "
              f"less often than the reference group's members with the same true outcome (lower selection rate; "
-             + ("lower TPR; lower FPR" if fr.favorable_is_positive else "higher TPR; higher FPR")
+             + ("lower TPR; lower FPR" if fav_pos else "higher TPR; higher FPR")
              + "), or when "
-             + (f"its {e(pos)} predictions are held to a higher bar (higher PPV)" if fr.favorable_is_positive
+             + (f"its {e(pos)} predictions are held to a higher bar (higher PPV)" if fav_pos
                 else f"its {e(unfav)} predictions are less often borne out (lower PPV)")
              + ". A flag pointing the other way is marked <span class='favour'>in the group's favour</span>: "
                "it still shows a difference from the reference group, to the reference group's cost.</p>"]
@@ -527,3 +569,79 @@ def _fairness_section(result, found, lvl: int) -> tuple[str, int]:
     parts.append("<p>The full table, with intervals, p-values and calibration columns, is in "
                  "<code>fairness.csv</code>.</p>")
     return "".join(parts), n
+
+
+def _confusion_table(confusion, classes) -> str:
+    """A K × K confusion matrix as an HTML table (rows: true class, columns: predicted), with totals."""
+    z = [[int(x) for x in row] for row in confusion]
+    header = ["true \\ predicted"] + [str(c) for c in classes] + ["total (support)"]
+    rows = []
+    for c, row in zip(classes, z):
+        rows.append([f"<b>{e(c)}</b>"] + [f"{x:,}" for x in row] + [f"{sum(row):,}"])
+    rows.append(["total (predicted)"] + [f"{sum(r[j] for r in z):,}" for j in range(len(classes))]
+                + [f"{sum(map(sum, z)):,}"])
+    return _table(header, rows, num_cols=tuple(range(1, len(classes) + 2)))
+
+
+def _multiclass_whole(result, find: str) -> tuple[str, int]:
+    """The whole table of a multi-class audit: the K × K confusion matrix and the per-class table
+    beside the averages; returns the section so far and the number of charts added."""
+    from . import charts
+
+    o = result.overall
+    classes = [str(c) for c in result.classes]
+    pc = o["per_class"]
+    prow = [[f"<b>{e(c)}</b>", f"{int(pc[c]['support']):,}", f"{int(pc[c]['predicted']):,}", _f(pc[c]["precision"]),
+             _f(pc[c]["recall"]), _f(pc[c]["f1"]), _f(pc[c]["jaccard"])] for c in classes]
+    prow.append(["<i>macro average</i>", "", "", _f(o.get("macro_precision")), _f(o.get("macro_recall")),
+                 _f(o.get("macro_f1")), ""])
+    prow.append(["<i>support-weighted average</i>", "", "", "", "", _f(o.get("weighted_f1")), ""])
+    prow.append(["<i>micro average (= accuracy)</i>", "", "", "", "", _f(o.get("micro_f1")), ""])
+    find += ("<h3>Per class, one versus the rest</h3><p>Each class c in turn is the positive class and every other "
+             "class the negative: precision is the share of rows predicted c that are truly c, recall the share of "
+             "rows of true class c predicted c. The averages below the classes are scikit-learn's: macro is the "
+             "plain mean over the classes present, weighted uses each class's support.</p>"
+             + _table(["class", "support (true rows)", "predicted rows", "precision", "recall", "F1",
+                       "Jaccard index"], prow, num_cols=(1, 2, 3, 4, 5, 6)))
+    find += ("<h3>Confusion matrix, whole table</h3>" + _confusion_table(o["confusion"], classes))
+    find += _figure(charts.class_confusion(o["confusion"], classes, title="Confusion matrix, whole table"),
+                    "fig-confusion",
+                    "Rows are the true class, columns the prediction; each cell gives its count and its share of "
+                    "the row, so the diagonal holds each class's recall. Off the diagonal, a large share shows "
+                    "which class the rows of a true class are mistaken for.")
+    find += _figure(charts.per_class_bars(result), "fig-per-class",
+                    "For each class, one versus the rest: precision, recall and F1, with the class's number of true "
+                    "rows under its name; the dotted line is the macro-averaged F1. A class far below the others "
+                    "is the one the averages hide.")
+    return find, 2
+
+
+def _drivers_html(result, flagged) -> tuple[str, int]:
+    """Which classes drive each flagged slice (see :func:`audit.faces.prose.class_drivers`), and the
+    confusion matrix of the worst flagged slice; returns the HTML and the number of charts."""
+    from . import charts
+
+    classes = [str(c) for c in result.classes]
+    rows = []
+    for _, r in flagged.iterrows():
+        d = class_drivers(result, r["slice"])
+        if not len(d):
+            rows.append([str(int(r["rank"])), e(r["slice"]), "<span class='muted'>no class below the rest with "
+                         "enough rows</span>", "", "", "", "", ""])
+        for i, x in d.iterrows():
+            rows.append([str(int(r["rank"])) if i == 0 else "", e(r["slice"]) if i == 0 else "",
+                         f"<b>{e(x['class'])}</b>", e(x["rate"]), _f(x["slice_value"]), _f(x["rest_value"]),
+                         _f(x["gap"]), f"{int(x['slice_rows']):,} / {int(x['rest_rows']):,}"])
+    out = ("<h3>Which classes drive each flagged slice</h3><p>"
+           + e(DRIVERS_RULE.format(min_rows=result.config.min_metric_support))
+           + " These gaps are descriptive: they point at where to look and carry no test or correction of their "
+             "own.</p>"
+           + _table(["rank", "slice", "class", "rate", "slice", "rest", "slice − rest", "rows behind the rate "
+                     "(slice / rest)"], rows, num_cols=(0, 4, 5, 6, 7)))
+    worst = flagged.iloc[0]["slice"]
+    conf = charts.slice_confusion(result, worst)
+    out += (f"<h3>Confusion matrix of the worst flagged slice: {e(worst)}</h3>" + _confusion_table(conf, classes))
+    out += _figure(charts.class_confusion(conf, classes, title=f"Confusion matrix, {worst}"), "fig-slice-confusion",
+                   f"The same grid for the rows of {worst} only: compare each row's shares with the whole table's "
+                   f"above to see which true class the slice gets wrong, and as what.")
+    return out, 1
