@@ -13,9 +13,9 @@ Echoes (:func:`explain`)
     * *outer without inner against the rest of the table*: ``outer − inner`` versus
       ``whole − outer``.
 
-    Both kinds of test, for every such couple, form one family corrected together with the
-    audit's correction (Benjamini–Hochberg by default). "Significantly worse" means adjusted
-    p ≤ alpha and worse, as for the flags. Then:
+    Each kind of test, over every such couple, is one family, corrected by Holm's step-down
+    method (``EXPLANATION_CORRECTION``; whatever the flags' correction). "Significantly worse"
+    means adjusted p ≤ alpha and worse, as for the flags. Then:
 
     * ``inner`` is explained by ``outer`` when it is not significantly worse than the rest of
       ``outer`` (a pair that only carries its parent's weakness);
@@ -49,6 +49,13 @@ from typing import Callable, Sequence
 import numpy as np
 
 from .correct import adjust
+
+#: Correction of each family of explanation tests: Holm (1979), step-down, controlling the chance
+#: of any false claim that a slice is worse than the slice it lies in or around. Most tests of
+#: a family reject overwhelmingly (a bad value without one of its pairs is still bad), which
+#: would make a false-discovery-rate threshold lenient for the few close calls that decide
+#: whether a slice is a finding of its own.
+EXPLANATION_CORRECTION = "holm"
 
 #: contrast(counts_a, counts_b, sums_a, sums_b) -> {"diff", "p_value", "_support", "_rsupport"}
 Contrast = Callable[..., dict]
@@ -109,8 +116,8 @@ def explain(keys: dict[int, frozenset], counts: np.ndarray, sums: np.ndarray | N
         down = contrast(part, rest, s_part, s_rest)
         p_up, ok_up = _testable(up, min_rows, min_metric_rows, counts[i], part)
         p_dn, ok_dn = _testable(down, min_rows, min_metric_rows, part, rest)
-        q_up, m_up = adjust(p_up, method=correction)
-        q_dn, m_dn = adjust(p_dn, method=correction)
+        q_up, m_up = adjust(p_up, method=EXPLANATION_CORRECTION)
+        q_dn, m_dn = adjust(p_dn, method=EXPLANATION_CORRECTION)
         info["tests"] = m_up + m_dn
         info["tests_inner"], info["tests_outer"] = m_up, m_dn
         worse_up = up["diff"] > 0 if higher_is_worse else up["diff"] < 0
