@@ -126,10 +126,12 @@ def method_notes(result) -> dict[str, Any]:
         "correction": {"method": cfg.correction, "title": CORRECTIONS[cfg.correction].title,
                        "controls": CORRECTIONS[cfg.correction].controls,
                        "reference": CORRECTIONS[cfg.correction].reference,
-                       "family": "tested slices of orders 1 and 2", "family_size": result.family_size},
+                       "family": "tested slices of orders 1 to " + str(cfg.max_order) if cfg.max_order > 1
+                                 else "tested slices of order 1", "family_size": result.family_size},
         "support": {"min_rows": cfg.min_support, "min_metric_rows": cfg.min_metric_support,
                     "metric_denominator": m.denominator},
         "ranking": "worst first by the conservative end of the interval of (slice − rest) in the bad direction",
+        "findings": _findings_note(result),
         "flag_rule": f"adjusted p-value ≤ {cfg.alpha:g} and worse than the rest",
         "undefined": "a ratio with a zero denominator is NaN (empty in CSV); such slices are not tested or ranked",
         "log_loss_clipping": f"probabilities clipped to [{EPS:g}, 1 − {EPS:g}]; natural logarithm",
@@ -449,3 +451,37 @@ def class_drivers(result, slice_name: str, *, top: int = 3):
                 rows.append([c, rate, vs, vr, vs - vr, int(den_s), int(den_r)])
     out = pd.DataFrame(rows, columns=cols)
     return out.sort_values("gap", kind="stable").head(top).reset_index(drop=True)
+
+
+def _findings_note(result) -> dict[str, Any]:
+    """How flagged slices become findings or echoes, and the adjusted intervals (audit.stats.findings)."""
+    ex = (result.method or {}).get("explanations", {})
+    lvl = ex.get("selection_level")
+    out = {
+        "roles": ("Every flagged slice is either a finding or an echo of another flagged slice. For each two flagged "
+                  "slices where one lies inside the other, two tests of the audited metric, with the same test as the "
+                  "flags and counts taken from the tally: the inner slice against the rest of the outer one, and the "
+                  "outer slice without the inner one against the rest of the table. A slice is an echo of a flagged "
+                  "slice it lies in when it is not significantly worse than that slice's other rows, and of a flagged "
+                  "slice inside it when that slice is significantly worse than its surroundings and the rest of the "
+                  "outer slice is not significantly worse than the rest of the table. A finding is a flagged slice no "
+                  "other flagged slice explains; echoes are folded under the finding their explanations lead to."),
+        "multiplicity": ("each kind of explanation test is one family, corrected by Holm's step-down method (Holm "
+                         "1979); significantly worse = adjusted p ≤ alpha and worse"),
+        "explanation_tests": ex.get("explanation_tests", 0),
+        "findings": ex.get("findings", 0),
+        "echoes": ex.get("echoes", 0),
+        "adjusted_intervals": ("intervals of the difference for the flagged slices at level 1 − R·alpha/m for the R "
+                               "slices selected by the correction among the m tested: false coverage-statement rate "
+                               "intervals (Benjamini & Yekutieli 2005, JASA 100:71-81); findings are ranked by their "
+                               "conservative end"),
+        "adjusted_level": lvl,
+    }
+    tri = (result.method or {}).get("triples")
+    if tri:
+        out["triples"] = (f"{tri['possible']:,} triples of values considered; {tri['pruned']:,} pruned because one of "
+                          f"their pairs has fewer than {tri['min_rows']} rows (so they could not reach the support "
+                          f"rule; pruning looks at row counts only), {tri['listed']:,} listed, {tri['tested']:,} "
+                          "tested" + ("" if tri.get("loss_sums") else "; log loss and Brier score of triples are "
+                                      "not computed unless the audited metric is one of them"))
+    return out
