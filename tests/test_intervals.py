@@ -163,3 +163,28 @@ def test_mean_interval_against_scipy_t_interval_for_large_slices():
         lo, hi = mean_interval(np.array([n]), np.array([x.sum()]), np.array([(x * x).sum()]), level=0.95)
         rlo, rhi = stats.t.interval(0.95, n - 1, loc=x.mean(), scale=stats.sem(x))
         assert lo[0] == pytest.approx(rlo, rel=1e-12) and hi[0] == pytest.approx(rhi, rel=1e-12)
+
+
+def test_t_quantile_for_whole_df_matches_scipy_without_loading_it():
+    # Reference: scipy.special.stdtrit. The engine solves whole ν from Abramowitz & Stegun
+    # 26.7.3/26.7.4 (finite series) by Newton's method, so a default audit does not import scipy.
+    from scipy.special import stdtrit
+
+    from audit.stats.intervals import t_quantile
+
+    df = np.arange(1, 400, dtype=float)
+    for q in (0.6, 0.75, 0.9, 0.95, 0.975, 0.995, 0.99995):
+        np.testing.assert_allclose(t_quantile(q, df), stdtrit(df, q), rtol=1e-11)
+    np.testing.assert_allclose(t_quantile(0.975, np.array([2.5, 17.3])), stdtrit(np.array([2.5, 17.3]), 0.975),
+                               rtol=1e-12)  # fractional ν (Welch) goes to scipy itself
+
+
+def test_normal_tail_and_log_factorial_match_scipy():
+    from scipy.special import gammaln, ndtr
+
+    from audit.stats.compare import _log_factorial, _normal_sf
+
+    z = np.linspace(-8, 30, 400)
+    np.testing.assert_allclose(_normal_sf(z), ndtr(-z), rtol=1e-10)
+    k = np.arange(0, 50_000)
+    np.testing.assert_allclose(_log_factorial(k), gammaln(k + 1.0), rtol=1e-14, atol=1e-13)

@@ -14,6 +14,7 @@ the average of the two variances for means.
 """
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -37,10 +38,16 @@ TESTS: dict[str, TestMethod] = {
     k: TestMethod(k, m.title, tuple(m.detail.split()), m.reference) for k, m in TEST_METHODS.items()}
 
 
-def _log_choose(a, b):
-    from scipy.special import gammaln
+def _log_factorial(k: np.ndarray) -> np.ndarray:
+    """ln k! for whole k >= 0, from math.lgamma on the distinct values (no scipy needed)."""
+    k = np.asarray(k, dtype=float)
+    u, inv = np.unique(k, return_inverse=True)
+    vals = np.array([math.lgamma(x + 1.0) if x >= 0 else math.nan for x in u.tolist()])
+    return vals[inv].reshape(k.shape)
 
-    return gammaln(a + 1.0) - gammaln(b + 1.0) - gammaln(a - b + 1.0)
+
+def _log_choose(a, b):
+    return _log_factorial(a) - _log_factorial(b) - _log_factorial(np.asarray(a) - np.asarray(b))
 
 
 def _hypergeom_logpmf(x, total, good, draws):
@@ -111,10 +118,13 @@ def two_proportion(k1, n1, k2, n2):
     return p, method
 
 
-def _normal_sf(z):
-    from scipy.special import ndtr
+_ERFC = np.frompyfunc(math.erfc, 1, 1)
 
-    return ndtr(-z)
+
+def _normal_sf(z):
+    """Upper tail of the standard normal, ½ erfc(z / √2), with the C library's erfc."""
+    z = np.asarray(z, dtype=float)
+    return (0.5 * _ERFC(z / math.sqrt(2.0))).astype(float)
 
 
 def welch_p(d, se, df):
