@@ -323,12 +323,20 @@ def _order_stat_bins(hist: np.ndarray, n: int) -> tuple[int, int]:
     return lo, hi
 
 
-def fit(source: Source, cfg, *, progress: Progress | None = None, keep: dict | None = None) -> Fitted:
+def fit(source: Source | pd.DataFrame, cfg, *, progress: Progress | None = None, keep: dict | None = None,
+        chunked: bool | None = None) -> Fitted:
     """First pass: check outcomes row by row, profile attributes, fit classes and encoding.
 
-    ``keep`` (a dict) receives the single chunk of a DataFrame source and its caches, so the
-    in-memory run encodes and tallies without reading the table twice.
+    ``source`` is a :class:`Source` or a DataFrame; ``cfg`` an ``AuditConfig`` (``audit.make_config``).
+    ``chunked=True`` fits for tallies that will be added (AUC from score histograms, the exact
+    median from candidates) even when the source is one DataFrame. ``keep`` (a dict) receives the
+    single chunk of a DataFrame source and its caches, so the in-memory run encodes and tallies
+    without reading the table twice.
     """
+    if isinstance(source, pd.DataFrame):
+        source = FrameSource(source)
+    if chunked is not None:
+        source.chunked = chunked
     return fit_evidence(profile_source(source, cfg, progress=progress, keep=keep), cfg)
 
 
