@@ -221,3 +221,22 @@ def test_the_routing_demo_hides_its_weakness_from_error_rate_and_shows_it_per_cl
     s = by_refer.slice("channel=partner")
     assert s["flagged"] and s["rank"] == 1 and s["metric_value"] < s["rest_value"] - 0.1
     assert by_error.skipped["application_id"].startswith("looks like an identifier")
+
+
+def test_slice_comparison_and_chance_band_for_three_classes():
+    from audit.faces import charts
+
+    df = routed(n=3000, seed=3)
+    for metric in ("error_rate", "recall:refer", "macro_f1", "f1:decline", "log_loss"):
+        res = audit.run(df, label="outcome", score=SCORE, metric=metric)
+        charts.noise_band(res)
+        charts.pair_heatmap(res, "branch", "channel")
+    comp = res.compare("branch=north").set_index("metric")
+    m = df["branch"].to_numpy() == "north"
+    pred = np.array(CLASSES)[df[[SCORE[c] for c in CLASSES]].to_numpy().argmax(axis=1)]
+    # reference: scikit-learn's recall of one class in the slice and in the rest
+    for where, mask in (("slice", m), ("rest", ~m)):
+        assert comp.loc["recall:refer", where] == pytest.approx(
+            skm.recall_score(df["outcome"][mask], pred[mask], labels=["refer"], average=None)[0])
+    rest = res.rest_counts("branch=north")
+    assert rest["n"] == (~m).sum() and rest["true_refer_pred_refer"] == int(((df["outcome"] == "refer") & (pred == "refer") & ~m).sum())

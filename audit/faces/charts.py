@@ -176,6 +176,10 @@ def _denominator(result) -> tuple[str, str]:
 
 
 def _denominator_count(row, name: str) -> int:
+    base, _, cls = name.partition(":")
+    if cls:  # a per-class rate of a multi-class audit
+        sup, pred = int(row[f"support_{cls}"]), int(row[f"predicted_{cls}"])
+        return {"actual": sup, "pred": pred, "tp_fp_fn": sup + pred - int(row[f"true_{cls}_pred_{cls}"])}[base]
     if name == "actual_neg":
         return int(row["n"] - row["actual_pos"])
     if name == "pred_neg":

@@ -264,14 +264,23 @@ def chance_band(result, sizes) -> tuple[np.ndarray, np.ndarray]:
     centre = result.overall.get(m.name)
     ns = np.asarray(sizes, dtype=float)
     z = _z(result.config.level)
-    if m.kind == "mean":
+    if m.kind in ("mean", "macro_f1"):
+        # the per-row spread recovered from the tested slices' own intervals
         sd = float(np.nanmedian(np.sqrt(t["n"]) * (t["metric_high"] - t["metric_low"]) / (2 * z)))
         half = z * sd / np.sqrt(ns)
     else:
         whole = result.slices.iloc[0]
-        den = {"n": whole["n"], "actual_pos": whole["actual_pos"], "actual_neg": whole["n"] - whole["actual_pos"],
-               "pred_pos": whole["pred_pos"], "pred_neg": whole["n"] - whole["pred_pos"],
-               "tp_fp_fn": whole["tp"] + whole["fp"] + whole["fn"]}[m.denominator]
+        base, _, cls = m.denominator.partition(":")
+        if cls:  # a per-class rate of a multi-class audit
+            den = {"actual": whole[f"support_{cls}"], "pred": whole[f"predicted_{cls}"],
+                   "tp_fp_fn": whole[f"support_{cls}"] + whole[f"predicted_{cls}"]
+                   - whole[f"true_{cls}_pred_{cls}"]}[base]
+        elif m.denominator == "n":
+            den = whole["n"]
+        else:
+            den = {"actual_pos": whole["actual_pos"], "actual_neg": whole["n"] - whole["actual_pos"],
+                   "pred_pos": whole["pred_pos"], "pred_neg": whole["n"] - whole["pred_pos"],
+                   "tp_fp_fn": whole["tp"] + whole["fp"] + whole["fn"]}[m.denominator]
         share = max(float(den) / float(whole["n"]), 1e-9)
         half = z * np.sqrt(centre * (1 - centre) / (ns * share))
     return centre - half, centre + half

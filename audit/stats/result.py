@@ -124,29 +124,60 @@ class AuditResult:
             keyed.append((order[attr.strip()], p))
         return " & ".join(p for _, p in sorted(keyed))
 
+    def _cell_names(self) -> list[str]:
+        return [f"true_{t}_pred_{p}" for t in self.classes for p in self.classes]
+
     def rest_counts(self, name: str) -> dict[str, int]:
-        """Confusion counts of the rows outside slice ``name``."""
+        """Confusion counts of the rows outside slice ``name`` (tp, fp, fn, tn and n for two
+        classes; ``true_<t>_pred_<p>`` cells and n for more)."""
         s = self.slice(name)
         whole = self.slice(ALL)
-        return {k: int(whole[k] - s[k]) for k in ("tp", "fp", "fn", "tn", "n")}
+        keys = ("tp", "fp", "fn", "tn", "n") if len(self.classes) == 2 else tuple(self._cell_names()) + ("n",)
+        return {k: int(whole[k] - s[k]) for k in keys}
 
     def compare(self, name: str) -> pd.DataFrame:
         """Every metric of slice ``name`` beside the same metric for the rest of the rows, with intervals.
 
         Columns: ``metric``, ``slice``, ``slice_low``, ``slice_high``, ``rest``, ``rest_low``, ``rest_high``.
+        With three or more classes: accuracy, error rate and each class's recall, precision and F1.
         """
         s = self.slice(name)
         rest = self.rest_counts(name)
-        cells = ("tn", "fp", "fn", "tp")  # the cell order of the tally
-        c = count_frame(np.array([[int(s[k]) for k in cells], [rest[k] for k in cells]]))
-        v = metric_values(c, None)
         lvl, meth = self.config.level, self.config.interval
         rows = []
-        for r, (num, den) in RATES.items():
-            lo, hi = proportion_interval(c[num], c[den], method=meth, level=lvl)
-            rows.append((r, v[r][0], lo[0], hi[0], v[r][1], lo[1], hi[1]))
-        lo, hi = f1_interval(c["tp"], c["fp"], c["fn"], method=meth, level=lvl)
-        rows.append(("f1", v["f1"][0], lo[0], hi[0], v["f1"][1], lo[1], hi[1]))
+        if len(self.classes) > 2:
+            from .multiclass import class_counts
+
+            k = len(self.classes)
+            both = np.array([[int(s[c]) for c in self._cell_names()], [rest[c] for c in self._cell_names()]])
+            cube = both.reshape(2, k, k)
+            n = cube.sum(axis=(1, 2))
+            correct = np.trace(cube, axis1=1, axis2=2)
+            for label, num in (("accuracy", correct), ("error_rate", n - correct)):
+                lo, hi = proportion_interval(num, n, method=meth, level=lvl)
+                v = num / np.maximum(n, 1)
+                rows.append((label, v[0], lo[0], hi[0], v[1], lo[1], hi[1]))
+            cc = class_counts(cube)
+            for i, c in enumerate(self.classes):
+                tp, sup, pred, fp, fn = (cc[x][:, i] for x in ("tp", "support", "pred", "fp", "fn"))
+                for label, num, den in ((f"recall:{c}", tp, sup), (f"precision:{c}", tp, pred)):
+                    lo, hi = proportion_interval(num, den, method=meth, level=lvl)
+                    with np.errstate(invalid="ignore", divide="ignore"):
+                        v = np.where(den > 0, num / np.maximum(den, 1), np.nan)
+                    rows.append((label, v[0], lo[0], hi[0], v[1], lo[1], hi[1]))
+                lo, hi = f1_interval(tp, fp, fn, method=meth, level=lvl)
+                with np.errstate(invalid="ignore", divide="ignore"):
+                    v = np.where(2 * tp + fp + fn > 0, 2 * tp / np.maximum(2 * tp + fp + fn, 1), np.nan)
+                rows.append((f"f1:{c}", v[0], lo[0], hi[0], v[1], lo[1], hi[1]))
+        else:
+            cells = ("tn", "fp", "fn", "tp")  # the cell order of the tally
+            c = count_frame(np.array([[int(s[k]) for k in cells], [rest[k] for k in cells]]))
+            v = metric_values(c, None)
+            for r, (num, den) in RATES.items():
+                lo, hi = proportion_interval(c[num], c[den], method=meth, level=lvl)
+                rows.append((r, v[r][0], lo[0], hi[0], v[r][1], lo[1], hi[1]))
+            lo, hi = f1_interval(c["tp"], c["fp"], c["fn"], method=meth, level=lvl)
+            rows.append(("f1", v["f1"][0], lo[0], hi[0], v["f1"][1], lo[1], hi[1]))
         out = pd.DataFrame(rows, columns=["metric", "slice", "slice_low", "slice_high", "rest", "rest_low",
                                           "rest_high"])
         total_errors = int(self.slice(ALL)["errors"])
