@@ -41,7 +41,9 @@ def files(credit, tmp_path_factory):
     part.mkdir()
     for i, lo in enumerate(range(0, len(credit), 1500)):
         credit.iloc[lo:lo + 1500].to_parquet(part / f"part-{i}.parquet", row_group_size=400)
-    return {"csv": str(csv), "parquet": str(pq), "dir": str(part), "glob": str(d / "cred*.csv")}
+    semi = d / "semicolon.csv"
+    credit.to_csv(semi, index=False, sep=";")
+    return {"csv": str(csv), "parquet": str(pq), "dir": str(part), "glob": str(d / "cred*.csv"), "semi": str(semi)}
 
 
 @pytest.fixture(scope="module")
@@ -49,7 +51,7 @@ def in_memory(files):
     return audit.run(pd.read_csv(files["csv"]), **SETTINGS)
 
 
-@pytest.mark.parametrize("kind,chunk", [("csv", 600), ("parquet", 500), ("dir", 700), ("glob", 2000)])
+@pytest.mark.parametrize("kind,chunk", [("csv", 600), ("parquet", 500), ("dir", 700), ("glob", 2000), ("semi", 1500)])
 def test_dask_run_equals_in_memory_run(client, files, in_memory, kind, chunk):
     res = audit.run(files[kind], chunk_rows=chunk, engine="dask", scheduler=client, **SETTINGS)
     bound = res.method["roc_auc_error_bound"]
@@ -134,3 +136,15 @@ def test_engine_dask_wants_a_path_and_scheduler_wants_dask(credit, tmp_path, cap
     code = main(["audit", "x.csv", "--label", "y", "--pred", "p", "--scheduler", "tcp://127.0.0.1:9",
                  "--out", str(tmp_path / "o")])
     assert code == 2 and "--scheduler needs --engine dask" in capsys.readouterr().err
+
+
+@pytest.mark.parametrize("engine", ["local", "dask"])
+def test_progress_moves_with_every_part_in_both_passes(client, files, engine):
+    seen = []
+    audit.run(files["parquet"], chunk_rows=250, engine=engine, scheduler=client if engine == "dask" else None,
+              progress=lambda stage, frac: seen.append((stage, frac)), **SETTINGS)
+    first = [f for s, f in seen if s == "reading and checking"]
+    second = [f for s, f in seen if s == "counting slices"]
+    assert len(first) >= 17 and len(second) >= 17  # 18 row groups of 250 rows
+    fracs = [f for _, f in seen]
+    assert fracs == sorted(fracs) and fracs[-1] == 1.0  # the bar never goes back

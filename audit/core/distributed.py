@@ -73,7 +73,8 @@ class Plan:
     chunk_rows: int
     columns: list[str] = field(default_factory=list)     # CSV header
     dtypes: dict[str, str] = field(default_factory=dict)  # CSV column types (from the first block)
-    encoding: str = "utf-8"
+    encoding: str = "utf-8-sig"
+    seps: dict[str, str] = field(default_factory=dict)    # CSV delimiter of each file (from its header)
 
 
 def _is_parquet(path: str) -> bool:
@@ -103,10 +104,11 @@ def make_plan(path: str, chunk_rows: int | None, encoding: str | None) -> Plan:
                 parts.append(Part("parquet", f, list(groups), offset=offset, rows=n))
         return Plan("parquet", files, parts, name, sum(os.path.getsize(f) for f in files), rows)
     files = _expand(path, CSV_EXTS)
-    enc = encoding or "utf-8"
+    enc = encoding or "utf-8-sig"  # as the reader on one machine: UTF-8, a byte-order mark allowed
+    seps = {f: _delimiter(f, enc) for f in files}
     first = files[0]
     try:
-        head = next(iter(pd.read_csv(first, sep=_sep(first), chunksize=min(rows, 100_000), encoding=enc,
+        head = next(iter(pd.read_csv(first, sep=seps[first], chunksize=min(rows, 100_000), encoding=enc,
                                      encoding_errors="strict", low_memory=False)), None)
     except UnicodeDecodeError as exc:
         raise AuditInputError(f"input file {shown(os.path.basename(first))} is not {enc} text near byte "
@@ -133,11 +135,37 @@ def make_plan(path: str, chunk_rows: int | None, encoding: str | None) -> Plan:
     if parts:
         parts[0].offset = 0
     return Plan("csv", files, parts, name, sum(os.path.getsize(f) for f in files), rows, list(head.columns),
-                csv_column_types(head), enc)
+                csv_column_types(head), enc, seps)
 
 
-def _sep(f: str) -> str:
-    return "\t" if f.lower().endswith((".tsv", ".tsv.gz")) else ","
+def _delimiter(f: str, encoding: str) -> str:
+    """The file's delimiter, picked from its header line as the reader on one machine does."""
+    import bz2
+    import gzip
+    import lzma
+
+    from .read import _pick_delimiter
+
+    low = f.lower()
+    try:
+        if low.endswith(".zip"):
+            import zipfile
+
+            with zipfile.ZipFile(f) as zf, zf.open(zf.namelist()[0]) as fh:
+                line = fh.readline(1 << 20)
+        else:
+            opener = {".gz": gzip.open, ".bz2": bz2.open, ".xz": lzma.open}.get(os.path.splitext(low)[1], open)
+            with opener(f, "rb") as fh:
+                line = fh.readline(1 << 20)
+        header = line.decode(encoding)
+    except UnicodeDecodeError as exc:
+        raise AuditInputError(f"input file {shown(os.path.basename(f))} is not {encoding.replace('-sig', '')} text "
+                              f"at byte {exc.start} of its header; pass encoding=... (--encoding NAME)",
+                              setting="encoding") from None
+    except Exception as exc:
+        raise AuditInputError(f"input file {shown(os.path.basename(f))} is not readable CSV "
+                              f"({type(exc).__name__})") from None
+    return _pick_delimiter(header.rstrip("\r\n"), low.endswith((".tsv", ".tsv.gz")))
 
 
 # ----------------------------------------------------------------------------- reading one part (on a worker)
@@ -181,7 +209,7 @@ def _read_csv_part(plan: Plan, part: Part):
     name = shown(os.path.basename(part.file))
     try:
         if part.end is None:  # a compressed file, or a text encoding that cannot be cut at bytes
-            reader = pd.read_csv(part.file, sep=_sep(part.file), chunksize=plan.chunk_rows, dtype=plan.dtypes,
+            reader = pd.read_csv(part.file, sep=plan.seps[part.file], chunksize=plan.chunk_rows, dtype=plan.dtypes,
                                  encoding=plan.encoding, encoding_errors="strict", low_memory=False)
             for df in reader:
                 if list(df.columns) != plan.columns:
@@ -190,13 +218,13 @@ def _read_csv_part(plan: Plan, part: Part):
             return
         if part.start == 0:
             with open(part.file, "rb") as fh:
-                header = pd.read_csv(io.BytesIO(fh.readline()), sep=_sep(part.file), encoding=plan.encoding, nrows=0)
+                header = pd.read_csv(io.BytesIO(fh.readline()), sep=plan.seps[part.file], encoding=plan.encoding, nrows=0)
             if list(header.columns) != plan.columns:
                 raise AuditInputError(f"input file {name} has other columns than {shown(os.path.basename(plan.files[0]))}")
         data = _block_bytes(part)
         if data is None:
             return
-        reader = pd.read_csv(io.BytesIO(data), sep=_sep(part.file), header=None, names=plan.columns,
+        reader = pd.read_csv(io.BytesIO(data), sep=plan.seps[part.file], header=None, names=plan.columns,
                              chunksize=plan.chunk_rows, dtype=plan.dtypes, encoding=plan.encoding,
                              encoding_errors="strict", low_memory=False)
         yield from reader
