@@ -244,8 +244,17 @@ def test_bad_files_show_a_message_not_an_exception():
                                               "text/csv")).run()
     assert not at.exception
     msg = " ".join(e.value for e in at.error)
-    assert "label column 'y' has 3 distinct values" in msg.replace("\\", "").lower() and "True label column" in msg
+    # Three classes and one probability column: the page asks for one per class, naming the widgets.
+    assert "Probability of class 0" in msg and "How the model's prediction is given" in msg
     assert "--" not in msg and "=" not in msg.replace("\\", "")
+    many = "y,p,g\n" + "".join(f"{i % 25},0.{i % 9},{'ab'[i % 2]}\n" for i in range(200))
+    at.file_uploader(key="upload").set_value(("many.csv", many.encode(), "text/csv")).run()
+    w(at, "selectbox", "label").set_value("y").run()
+    w(at, "multiselect", "attributes").set_value(["g"])
+    submit(at)
+    msg = " ".join(e.value for e in at.error)
+    assert "label column 'y' has 25 distinct values" in msg.replace("\\", "").lower() and "True label column" in msg
+    assert "--" not in msg and "score=" not in msg.replace("\\", "")
 
 
 def test_reference_group_on_a_missing_attribute_is_reported(demo_df):

@@ -15,6 +15,7 @@ from __future__ import annotations
 import datetime as _dt
 import hashlib
 import os
+import shlex
 import sys
 import time
 
@@ -32,7 +33,8 @@ from audit.faces.export import fairness_csv, slices_csv, summary_json  # noqa: E
 from audit.stats.correct import CORRECTIONS  # noqa: E402
 from audit.stats.intervals import INTERVALS  # noqa: E402
 from audit.stats.measure import METRICS  # noqa: E402
-from ui import fairness_view, intake  # noqa: E402
+from audit.stats.methods import metric_for  # noqa: E402
+from ui import classes_view, fairness_view, findings_view, folder_view, intake  # noqa: E402
 from ui.memo import REPORTS, RESULTS  # noqa: E402
 from ui.wording import WIDGETS, check_reference, md, page_error, parse_reference  # noqa: E402
 
@@ -46,6 +48,20 @@ SENSITIVE = ("Protected attributes are sensitive personal data: handle the file 
 RANKED_COLUMNS = ["rank", "slice", "order", "n", "metric_value", "metric_low", "metric_high", "rest_value", "diff",
                   "diff_low", "diff_high", "p_value", "q_value", "flagged"]
 NONE = "(none)"
+CHOOSE = "(choose)"
+PROBS, PRED_COLUMN = "one probability column per class", "a predicted-label column"
+MULTI_METRICS = ["error_rate", "accuracy", "macro_f1", "log_loss", "brier"]
+LARGER = """The upload limit keeps this page responsive for everyone using it. For a larger table, run the same
+audit from the command line on a machine that can read the file; memory stays bounded by the chunk:
+
+```
+fissure audit predictions.csv --label LABEL --score PROB --chunk-rows 1000000 --out run1
+fissure audit parts/ --label LABEL --score PROB --out run1                     # a folder of Parquet files
+fissure audit parts/ --label LABEL --score PROB --engine dask --scheduler tcp://HOST:8786 --out run1
+```
+
+Then type the output folder (`run1`) below to browse its findings, ranked slices and fairness flags here,
+read from its `slices.csv` and `summary.json` without recomputing anything."""
 
 st.set_page_config(page_title="Fissure slice audit", layout="wide")
 try:
@@ -121,6 +137,84 @@ def file_digest(file_id: str, data: bytes) -> str:
     return memo[file_id]
 
 
+def cli_command(settings: dict, file_name: str) -> str:
+    """``fissure audit ...`` with the page's settings (the defaults left out)."""
+    q = shlex.quote
+    parts = ["fissure audit", q(file_name), "--label", q(settings["label"])]
+    score = settings.get("score")
+    if isinstance(score, tuple):
+        parts += ["--score", q(",".join(f"{k}={v}" for k, v in score))]
+    elif score:
+        parts += ["--score", q(score)]
+    if settings.get("pred"):
+        parts += ["--pred", q(settings["pred"])]
+    if settings.get("positive"):
+        parts += ["--positive", q(settings["positive"])]
+    defaults = {"threshold": 0.5, "bins": 5, "metric": "error_rate", "min_support": 30, "min_metric_support": 10,
+                "alpha": 0.05, "correction": "bh", "interval": "wilson", "level": 0.95, "max_order": 2}
+    parts += ["--attributes", q(",".join(settings["attributes"]))]
+    for k, d in defaults.items():
+        v = settings.get(k)
+        if v is not None and v != d and not (k == "threshold" and not score):
+            parts += ["--" + k.replace("_", "-"), q(str(v))]
+    if settings.get("protected"):
+        fav = settings["favorable"]
+        parts += ["--protected", q(",".join(settings["protected"])),
+                  "--favorable", q(",".join(fav) if isinstance(fav, tuple) else str(fav))]
+        if settings.get("min_group_share", 0.02) != 0.02:
+            parts += ["--min-group-share", q(str(settings["min_group_share"]))]
+        for a, g in settings.get("reference", ()):
+            parts += ["--reference", q(f"{a}={g}")]
+    parts += ["--out", "fissure-out"]
+    return " ".join(parts)
+
+
+def show_ranked(result, where, *, key: str) -> None:
+    """The ranked list of tested slices (the engine's columns)."""
+    m = result.metric
+    PV = st.column_config.NumberColumn(format="%.2e")
+    N4 = st.column_config.NumberColumn(format="%.4f")
+    where.dataframe(result.ranked()[RANKED_COLUMNS].rename(columns={"metric_value": m.name}), hide_index=True,
+                    width="stretch", height=360,
+                    column_config={m.name: N4, "metric_low": N4, "metric_high": N4, "rest_value": N4, "diff": N4,
+                                   "diff_low": N4, "diff_high": N4, "p_value": PV,
+                                   "q_value": st.column_config.NumberColumn("adjusted p", format="%.2e")})
+
+
+def show_finished_run(run: "folder_view.FinishedRun") -> None:
+    """A finished run's folder, read-only: nothing is recomputed."""
+    res, summ = run.result, run.summary
+    st.header("A finished run, read from its folder")
+    st.caption(f"From **{md(run.folder)}**: slices.csv and summary.json, written {md(summ.get('created', '?'))} by "
+               f"Fissure {md((summ.get('tool') or {}).get('version', '?'))} for the file "
+               f"**{md(res.source.name)}**. Nothing is recomputed: the settings are the run's own. Clear the folder "
+               "above to go back to auditing an upload.")
+    st.info(CAUTION)
+    stc = res.status_counts()
+    k1, k2, k3, k4, k5 = st.columns(5)
+    k1.metric("Rows", f"{res.n_rows:,}")
+    k2.metric(f"Overall {res.metric.name}", fmt(res.overall.get(res.metric.name)))
+    k3.metric("Slices tested", f"{stc.get('tested', 0):,}", help=f"family size m = {res.family_size}")
+    k4.metric("Flagged", f"{stc.get('flagged', 0):,}")
+    k5.metric("Findings", f"{len(res.findings()):,}")
+    st.header("Findings first")
+    tab_f, tab_r = st.tabs(["Findings and their echoes", "Every tested slice, ranked"])
+    findings_view.show(res, tab_f)
+    show_ranked(res, tab_r, key="run_ranked")
+    if summ.get("fairness"):
+        fav = (summ["fairness"] or {}).get("favorable_outcome")
+        st.header("Group fairness")
+        st.caption(SENSITIVE + f" Favourable outcome: predicted {fairness_view.favourable_words(fav)}.")
+        fairness_view.show_flags(run.fairness_flags, st)
+        groups = folder_view.fairness_groups(summ)
+        if groups is not None and len(groups):
+            attrs = list(dict.fromkeys(groups["attribute"]))
+            pick = st.selectbox("Protected attribute or intersection", attrs, key=f"run_fair-{_h(run.folder, attrs)}")
+            ft = fairness_view.table(groups, pick)
+            st.dataframe(ft, hide_index=True, width="stretch", column_config=fairness_view.column_config(st, ft.columns))
+    st.caption(CAUTION)
+
+
 st.title("Fissure · slice audit of a classifier")
 st.caption("Find the customer groups where a model that looks fine on average does worse: every attribute value and "
            "every pair, with intervals, tests against the rest of the rows and control of false discoveries.")
@@ -140,8 +234,23 @@ else:
     st.caption(f"No file uploaded: showing the **demo**, a fictional lender's 90-day delinquency model on synthetic "
                f"applicants (see demo/README.md for the weaknesses planted in it). A file over {MAX_UPLOAD_MB} MB is "
                f"refused by the uploader (a red mark on the file) and the page stays on the demo: use the command line "
-               f"(`fissure audit`) for larger tables.")
+               f"(`fissure audit`) for larger tables, as said under *Larger tables* below.")
 t = _tick("digest", t)
+with st.expander("Larger tables, and browsing a run made on the command line",
+                 expanded=bool(st.session_state.get("run_folder"))):
+    st.markdown(LARGER)
+    folder_text = st.text_input("Output folder of a finished run, on this server (read-only: only its slices.csv "
+                                "and summary.json are read)", key="run_folder", placeholder="/path/to/run1")
+if folder_text.strip():
+    try:
+        finished = folder_view.open_run(folder_text)
+    except folder_view.Refused as exc:
+        st.error(f"**Output folder of a finished run**: {md(str(exc))} Nothing was opened; the page below audits "
+                 "the uploaded file (or the demo).")
+    else:
+        del data
+        show_finished_run(finished)
+        st.stop()
 try:
     table = intake.read_upload(data, name, sha)
 except AuditInputError as exc:
@@ -164,45 +273,82 @@ c1, c2, c3 = st.columns(3)
 score_guess = intake.guess_score(table)
 label_guess = intake.guess_label(table, score_guess)
 label = choose(c1, WIDGETS["label"], cols, label_guess, "label", sig)
-score_opts = [NONE] + [c for c in cols if c != label]
-score = choose(c2, WIDGETS["score"], score_opts, score_guess or NONE, "score", sig, label)
-score = None if score == NONE else score
-pred_opts = [NONE] + [c for c in cols if c not in (label, score)]
-pred = choose(c3, WIDGETS["pred"] + " (optional when a probability is given: else probability ≥ threshold)",
-              pred_opts, intake.guess_pred(table, label, score) or NONE, "pred", sig, label, score)
-pred = None if pred == NONE else pred
-looks_pred = [c for c in intake.pred_like_columns(table, label) if c != pred]
-if looks_pred and pred is None:
-    st.caption(f"Column {', '.join(repr(md(c)) for c in looks_pred)} looks like a predicted label: choose it under "
-               f"**{WIDGETS['pred']}** to audit those decisions rather than probability ≥ threshold.")
+classes = intake.label_classes(table, label)
+multi = len(classes) >= 3
+score_map: dict[str, str] = {}
+if not multi:
+    score_opts = [NONE] + [c for c in cols if c != label]
+    score = choose(c2, WIDGETS["score"], score_opts, score_guess or NONE, "score", sig, label)
+    score = None if score == NONE else score
+    pred_opts = [NONE] + [c for c in cols if c not in (label, score)]
+    pred = choose(c3, WIDGETS["pred"] + " (optional when a probability is given: else probability ≥ threshold)",
+                  pred_opts, intake.guess_pred(table, label, score) or NONE, "pred", sig, label, score)
+    pred = None if pred == NONE else pred
+    looks_pred = [c for c in intake.pred_like_columns(table, label) if c != pred]
+    if looks_pred and pred is None:
+        st.caption(f"Column {', '.join(repr(md(c)) for c in looks_pred)} looks like a predicted label: choose it under "
+                   f"**{WIDGETS['pred']}** to audit those decisions rather than probability ≥ threshold.")
+    used = (label, score, pred)
+else:
+    guessed = intake.class_score_columns(table, classes, exclude=(label,))
+    pred_guess = next(iter(intake.pred_like_columns(table, label)), None)
+    how = choose(c2, WIDGETS["how"], [PROBS, PRED_COLUMN],
+                 PROBS if any(guessed.values()) or pred_guess is None else PRED_COLUMN, "how", sig, label)
+    score = pred = None
+    if how == PROBS:
+        prob_opts = [NONE] + [c for c in cols if c != label and table.columns[c].numeric]
+        st.caption(f"**{md(label)}** has {len(classes)} classes: " + ", ".join(f"**{md(k)}**" for k in classes)
+                   + ". Each row's prediction is its most probable class.")
+        boxes = st.columns(min(4, len(classes)))
+        for i, k in enumerate(classes):
+            col = choose(boxes[i % len(boxes)], f"{WIDGETS['class_score']} {k}", prob_opts, guessed.get(k) or NONE,
+                         f"class_score_{i}", sig, label, k)
+            if col != NONE:
+                score_map[k] = col
+    else:
+        pred_opts = [NONE] + [c for c in cols if c != label]
+        pred = choose(c3, WIDGETS["pred"], pred_opts, pred_guess or NONE, "pred", sig, label, "multi")
+        pred = None if pred == NONE else pred
+    used = (label, pred, *score_map.values())
 
-candidates = [c for c in cols if c not in (label, score, pred)]
-sliceable, not_sliceable = intake.screen(table, candidates, label=label)
+candidates = [c for c in cols if c not in used]
+bins_now = int(st.session_state.get(f"bins-{sig}", 5))
+sliceable, not_sliceable = intake.screen(table, candidates, label=label, bins=bins_now)
 values = intake.label_values(table, label)
-roles = (sig, label, score, pred)
+roles = (sig, *used)
 t = _tick("guess", t)
 
 with st.form("settings"):
     c4, c5, c6 = st.columns(3)
-    positive = choose(c4, WIDGETS["positive"], ["(infer)"] + values, "(infer)", "positive", *roles,
-                      help="Inferred for 0/1, false/true, no/yes labels; pick it otherwise.")
-    threshold = c5.number_input(WIDGETS["threshold"], 0.0, 1.0, 0.5, 0.01, key=f"threshold-{sig}",
-                                disabled=score is None or pred is not None,
-                                help="Used only when the prediction comes from the probability column.")
+    if not multi:
+        positive = choose(c4, WIDGETS["positive"], ["(infer)"] + values, "(infer)", "positive", *roles,
+                          help="Inferred for 0/1, false/true, no/yes labels; pick it otherwise.")
+        threshold = c5.number_input(WIDGETS["threshold"], 0.0, 1.0, 0.5, 0.01, key=f"threshold-{sig}",
+                                    disabled=score is None or pred is not None,
+                                    help="Used only when the prediction comes from the probability column.")
+    else:
+        positive, threshold = "(infer)", 0.5
+        c4.caption("Three or more classes: no positive class and no threshold; each class is measured one-vs-rest "
+                   "and averaged.")
     bins = c6.number_input(WIDGETS["bins"], 1, 20, 5, 1, key=f"bins-{sig}")
     attrs = choose_many(st, WIDGETS["attributes"], candidates, sliceable, "attributes", *roles)
     if not_sliceable:
         st.caption("Not preselected: " + "; ".join(f"**{md(k)}**: {md(v)}" for k, v in not_sliceable.items())
                    + ". Choosing one anyway: the audit skips it and says why.")
     c7, c8, c9, c10 = st.columns(4)
-    metric_names = [k for k, m in METRICS.items() if score is not None or not m.needs_score]
-    metric = choose(c7, WIDGETS["metric"], metric_names, "error_rate", "metric", sig, score is None,
-                    format_func=lambda k: f"{k} — {METRICS[k].title}")
+    if not multi:
+        metric_names = [k for k, m in METRICS.items() if score is not None or not m.needs_score]
+    else:
+        metric_names = [k for k in MULTI_METRICS if score_map or k not in ("log_loss", "brier")]
+        metric_names += [f"{b}:{k}" for k in classes for b in ("recall", "precision", "f1")]
+    metric = choose(c7, WIDGETS["metric"], metric_names, "error_rate", "metric", sig, multi, score is None,
+                    bool(score_map), label, format_func=lambda k: f"{k} — {metric_for(k).title}")
     min_support = c8.number_input(WIDGETS["min_support"], 1, 100000, 30, 5, key=f"min_support-{sig}")
     min_metric = c9.number_input(WIDGETS["min_metric_support"], 1, 100000, 10, 5, key=f"min_metric-{sig}",
                                  help="For recall, the actual positives; for precision, the predicted positives.")
-    max_order = c10.selectbox(WIDGETS["max_order"], [2, 1], index=0, key=f"max_order-{sig}",
-                              format_func=lambda o: "single attributes and pairs" if o == 2 else "single attributes")
+    max_order = c10.selectbox(WIDGETS["max_order"], [2, 1, 3], index=0, key=f"max_order-{sig}",
+                              format_func=lambda o: {1: "single attributes", 2: "single attributes and pairs",
+                                                     3: "up to three attributes"}[o])
     c11, c12, c13, c14 = st.columns(4)
     alpha = c11.number_input(WIDGETS["alpha"], 0.001, 0.5, 0.05, 0.01, format="%.3f", key=f"alpha-{sig}")
     correction = c12.selectbox(WIDGETS["correction"], list(CORRECTIONS), index=0, key=f"correction-{sig}",
@@ -213,23 +359,46 @@ with st.form("settings"):
     st.markdown("**Group fairness** (optional). " + SENSITIVE)
     f1, f2, f3 = st.columns(3)
     protected = choose_many(f1, WIDGETS["protected"], candidates, [], "protected", *roles)
-    favorable = choose(f2, WIDGETS["favorable"], ["(positive prediction)"] + values, "(positive prediction)",
-                       "favorable", *roles, help="For a delinquency model, being predicted not delinquent is favourable.")
+    fav_help = ("Which prediction is good for the person: for a delinquency model, being predicted not delinquent; "
+                "for a loan-routing model, being approved. Required with protected attributes.")
+    if not multi:
+        favorable = choose(f2, WIDGETS["favorable"], [CHOOSE] + values, CHOOSE, "favorable", *roles, help=fav_help)
+        favorable = None if favorable == CHOOSE else favorable
+    else:
+        favorable = tuple(choose_many(f2, WIDGETS["favorable"], classes, [], "favorable_set", *roles,
+                                      help=fav_help)) or None
     min_share = f3.number_input(WIDGETS["min_group_share"], 0.0, 0.5, 0.02, 0.01, key=f"min_share-{sig}")
     reference_text = st.text_input(WIDGETS["reference"] + " (optional; default: the highest selection rate), e.g. "
                                    "sex=female; age_band=35-44", key=f"reference-{sig}")
     st.form_submit_button("Run the audit")
 
-if score is None and pred is None:
+if multi and how == PROBS and len(score_map) < len(classes):
+    missing = [k for k in classes if k not in score_map]
+    st.error(f"Choose a column under **{WIDGETS['class_score']} {md(missing[0])}**"
+             + (f" (and for {', '.join(repr(md(k)) for k in missing[1:])})" if missing[1:] else "")
+             + f", or choose *{PRED_COLUMN}* under **{WIDGETS['how']}**: with {len(classes)} classes the audit needs "
+               "one probability column per class.")
+    st.stop()
+if multi and how == PRED_COLUMN and pred is None:
+    st.error(f"Choose a column under **{WIDGETS['pred']}**, or choose *{PROBS}* under **{WIDGETS['how']}**: the "
+             "audit needs the model's predictions.")
+    st.stop()
+if not multi and score is None and pred is None:
     st.error(f"Choose a column under **{WIDGETS['score']}** or under **{WIDGETS['pred']}**: the audit needs the "
              "model's predictions.")
     st.stop()
 if not attrs:
     st.error(f"Choose at least one column under **{WIDGETS['attributes']}**.")
     st.stop()
+if protected and favorable is None:
+    st.error(f"Choose the **{WIDGETS['favorable']}**: with protected attributes the fairness checks need to know "
+             "which prediction is good for the person (for a delinquency model, being predicted not delinquent). "
+             "There is no default; the audit runs once it is chosen.")
+    st.stop()
 
 settings = {
-    "label": label, "score": score, "pred": pred, "positive": None if positive == "(infer)" else positive,
+    "label": label, "score": tuple(sorted(score_map.items())) if multi and score_map else score, "pred": pred,
+    "positive": None if positive == "(infer)" else positive,
     "threshold": float(threshold), "bins": int(bins), "attributes": tuple(attrs), "metric": metric,
     "min_support": int(min_support), "min_metric_support": int(min_metric), "alpha": float(alpha),
     "correction": correction, "interval": interval, "level": float(level), "max_order": int(max_order),
@@ -241,7 +410,7 @@ if problem:
     st.stop()
 if protected:
     settings["protected"] = tuple(protected)
-    settings["favorable"] = None if favorable == "(positive prediction)" else favorable
+    settings["favorable"] = favorable
     settings["min_group_share"] = float(min_share)
     if refs:
         settings["reference"] = tuple(sorted(refs.items()))
@@ -252,6 +421,8 @@ def _audit():
     kw = dict(settings)
     if "reference" in kw:
         kw["reference"] = dict(kw["reference"])
+    if isinstance(kw["score"], tuple):
+        kw["score"] = dict(kw["score"])
     created = _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0).isoformat()
     return run(df, source=table.source, **kw), created  # one timestamp per run: report and summary share it
 
@@ -267,6 +438,7 @@ t = _tick("audit", t)
 run_id = _h(sha, key)
 
 m = result.metric
+multi = len(result.classes) >= 3
 lvl = int(round(result.config.level * 100))
 st.info(CAUTION)
 
@@ -281,58 +453,72 @@ k3.metric("Slices tested", f"{stc.get('tested', 0):,}", help=f"family size m = {
 k4.metric("Below support", f"{stc.get('below_support', 0):,}")
 k5.metric("Flagged", f"{stc.get('flagged', 0):,}", help="Slices that do worse than the rest of the rows, with "
           "adjusted p at or below the threshold. Slices that do better are never flagged.")
-pos_note = " (inferred)" if result.positive_inferred else ""
-st.caption(f"Label **{md(label)}**; positive class: **{md(result.classes[1])}**{pos_note}; negative: "
-           f"{md(result.classes[0])}. "
-           + (f"Prediction: **{md(score)}** ≥ {result.config.threshold:g}." if result.prediction_source == "threshold"
-              else f"Prediction: the column **{md(pred)}**."))
 skipped = {**result.skipped}
+NUM4 = st.column_config.NumberColumn(format="%.4f")
+if multi:
+    classes_view.overview(result, st, lvl=lvl)
+else:
+    pos_note = " (inferred)" if result.positive_inferred else ""
+    st.caption(f"Label **{md(label)}**; positive class: **{md(result.classes[1])}**{pos_note}; negative: "
+               f"{md(result.classes[0])}. "
+               + (f"Prediction: **{md(score)}** ≥ {result.config.threshold:g}." if result.prediction_source == "threshold"
+                  else f"Prediction: the column **{md(pred)}**."))
+    left, right = st.columns([3, 2])
+    rows = []
+    for k in ["accuracy", "error_rate", "precision", "recall", "specificity", "fpr", "fnr", "f1", "log_loss", "brier",
+              "roc_auc"]:
+        if o.get(k) is None:
+            continue
+        rows.append({"metric": k, "value": o[k], f"{lvl}% low": o.get(k + "_low"), f"{lvl}% high": o.get(k + "_high")})
+    left.dataframe(pd.DataFrame(rows), hide_index=True, width="stretch", height=35 * (len(rows) + 1) + 3,
+                   column_config={"value": NUM4, f"{lvl}% low": NUM4, f"{lvl}% high": NUM4})
+    right.plotly_chart(charts.confusion(o, result.classes, title="Confusion matrix, all rows"), key="confusion_all")
 if skipped:
     st.caption("Chosen but not sliced by the audit: " + "; ".join(f"**{md(k)}**: {md(v)}" for k, v in skipped.items()))
-left, right = st.columns([3, 2])
-rows = []
-for k in ["accuracy", "error_rate", "precision", "recall", "specificity", "fpr", "fnr", "f1", "log_loss", "brier",
-          "roc_auc"]:
-    if o.get(k) is None:
-        continue
-    rows.append({"metric": k, "value": o[k], f"{lvl}% low": o.get(k + "_low"), f"{lvl}% high": o.get(k + "_high")})
-NUM4 = st.column_config.NumberColumn(format="%.4f")
-left.dataframe(pd.DataFrame(rows), hide_index=True, width="stretch", height=35 * (len(rows) + 1) + 3,
-               column_config={"value": NUM4, f"{lvl}% low": NUM4, f"{lvl}% high": NUM4})
-right.plotly_chart(charts.confusion(o, result.classes, title="Confusion matrix, all rows"), key="confusion_all")
 
-# ----------------------------------------------------------------------------- ranked slices
-st.header("4 · Worst slices")
+# ----------------------------------------------------------------------------- findings, then every slice
+st.header("4 · Findings first")
+st.caption("A finding is a flagged slice that no other flagged slice explains; the slices flagged only because "
+           "they lie in or around it are its echoes. Every tested slice is in the second tab.")
+tab_findings, tab_ranked = st.tabs(["Findings and their echoes", "Every tested slice, ranked"])
+findings_view.show(result, tab_findings)
+t = _tick("findings", t)
 ranked = result.ranked()
 attr_names = [a.name for a in result.attributes]
-g1, g2, g3 = st.columns([3, 2, 1])
-pick_attrs = choose_many(g1, "Only slices involving", attr_names, [], "filter_attrs", sig, attr_names)
-order_pick = g2.radio("Slice kind", ["all", "single attribute", "pair"], horizontal=True, key="filter_order")
-only_flagged = g3.checkbox("Flagged only", value=False, key="filter_flagged")
+with tab_ranked:
+    g1, g2, g3 = st.columns([3, 2, 1])
+    pick_attrs = choose_many(g1, "Only slices involving", attr_names, [], "filter_attrs", sig, attr_names)
+    kinds = ["all", "single attribute", "pair"] + (["three attributes"] if result.config.max_order >= 3 else [])
+    order_pick = g2.radio("Slice kind", kinds, horizontal=True, key="filter_order")
+    only_flagged = g3.checkbox("Flagged only", value=False, key="filter_flagged")
 
 
 def _filtered(frame: pd.DataFrame, *, flagged: bool) -> pd.DataFrame:
     if pick_attrs:
-        frame = frame[frame["attribute_1"].isin(pick_attrs) | frame["attribute_2"].isin(pick_attrs)]
+        hit = frame["attribute_1"].isin(pick_attrs) | frame["attribute_2"].isin(pick_attrs)
+        if "attribute_3" in frame.columns:
+            hit |= frame["attribute_3"].isin(pick_attrs)
+        frame = frame[hit]
     if order_pick != "all":
-        frame = frame[frame["order"] == (1 if order_pick == "single attribute" else 2)]
+        frame = frame[frame["order"] == kinds.index(order_pick)]
     if flagged:
         frame = frame[frame["flagged"]]
     return frame
 
 
 view = _filtered(ranked, flagged=only_flagged)
-st.caption(f"{len(view):,} of {len(ranked):,} tested slices, worst first by the cautious end of the {lvl}% interval "
-           f"of (slice − rest) for {md(m.title)}. Flags cover only slices that do **worse** than the rest of the rows; "
-           "a slice that does significantly better is listed but never flagged.")
-PVAL = st.column_config.NumberColumn(format="%.2e")
-st.dataframe(view[RANKED_COLUMNS].rename(columns={"metric_value": m.name}), hide_index=True, width="stretch",
-             height=360, column_config={m.name: NUM4, "metric_low": NUM4, "metric_high": NUM4, "rest_value": NUM4,
-                                        "diff": NUM4, "diff_low": NUM4, "diff_high": NUM4, "p_value": PVAL,
-                                        "q_value": st.column_config.NumberColumn("adjusted p", format="%.2e")})
-t = _tick("ranked table", t)
-if len(view):
-    st.plotly_chart(charts.top_slices(result, k=15, ranked=view), key="top_chart")
+with tab_ranked:
+    st.caption(f"{len(view):,} of {len(ranked):,} tested slices, worst first by the cautious end of the {lvl}% "
+               f"interval of (slice − rest) for {md(m.title)}. Flags cover only slices that do **worse** than the "
+               "rest of the rows; a slice that does significantly better is listed but never flagged.")
+    PVAL = st.column_config.NumberColumn(format="%.2e")
+    st.dataframe(view[RANKED_COLUMNS].rename(columns={"metric_value": m.name}), hide_index=True, width="stretch",
+                 height=360, column_config={m.name: NUM4, "metric_low": NUM4, "metric_high": NUM4, "rest_value": NUM4,
+                                            "diff": NUM4, "diff_low": NUM4, "diff_high": NUM4, "p_value": PVAL,
+                                            "q_value": st.column_config.NumberColumn("adjusted p", format="%.2e")})
+    t = _tick("ranked table", t)
+    if len(view):
+        st.plotly_chart(charts.top_slices(result, k=15, ranked=view), key="top_chart")
 
 # ----------------------------------------------------------------------------- one slice
 st.header("5 · Inspect one slice")
@@ -340,35 +526,46 @@ untested = result.slices[(result.slices["status"] != "tested") & (result.slices[
 choices = view["slice"].tolist() + ([] if only_flagged else _filtered(untested, flagged=False)["slice"].tolist())
 choices = [c for c in choices if c != ALL]
 if not choices:
-    st.caption("No slice matches the filters above.")
+    st.caption("No slice matches the filters of the ranked list.")
 else:
-    chosen = choose(st, "Slice (follows the filters above)", choices, choices[0], "slice_pick", run_id)
+    chosen = choose(st, "Slice (follows the filters of the ranked list)", choices, choices[0], "slice_pick", run_id)
     s = result.slice(chosen)
-    rest = result.rest_counts(chosen)
-    st.markdown(f"**{md(chosen)}** · n = **{int(s['n']):,}** rows · errors {int(s['errors']):,} · "
-                f"tp {int(s['tp']):,} · fp {int(s['fp']):,} · fn {int(s['fn']):,} · tn {int(s['tn']):,}")
-    a, b = st.columns(2)
-    a.plotly_chart(charts.confusion(s, result.classes, title=f"In the slice (n={int(s['n']):,})"), key="cm_slice")
-    b.plotly_chart(charts.confusion(rest, result.classes, title=f"In the rest (n={rest['n']:,})"), key="cm_rest")
-    comp_df = result.compare(chosen)
-    st.markdown(f"Status: **{md(s['status'])}** {md(s['status_reason'])}  ·  this slice holds "
-                f"**{comp_df.attrs['share_of_errors']:.1%}** of all errors and {s['share']:.1%} of all rows.")
-    st.dataframe(comp_df, hide_index=True, width="stretch",
-                 column_config={c: NUM4 for c in comp_df.columns[1:]})
+    if multi:
+        classes_view.slice_panel(result, chosen, st)
+        st.markdown(f"Status: **{md(s['status'])}** {md(s['status_reason'])}  ·  {s['share']:.1%} of all rows.")
+    else:
+        rest = result.rest_counts(chosen)
+        st.markdown(f"**{md(chosen)}** · n = **{int(s['n']):,}** rows · errors {int(s['errors']):,} · "
+                    f"tp {int(s['tp']):,} · fp {int(s['fp']):,} · fn {int(s['fn']):,} · tn {int(s['tn']):,}")
+        a, b = st.columns(2)
+        a.plotly_chart(charts.confusion(s, result.classes, title=f"In the slice (n={int(s['n']):,})"), key="cm_slice")
+        b.plotly_chart(charts.confusion(rest, result.classes, title=f"In the rest (n={rest['n']:,})"), key="cm_rest")
+        comp_df = result.compare(chosen)
+        st.markdown(f"Status: **{md(s['status'])}** {md(s['status_reason'])}  ·  this slice holds "
+                    f"**{comp_df.attrs['share_of_errors']:.1%}** of all errors and {s['share']:.1%} of all rows.")
+        st.dataframe(comp_df, hide_index=True, width="stretch",
+                     column_config={c: NUM4 for c in comp_df.columns[1:]})
     if result.overall.get("log_loss") is not None:
+        auc = s.get("roc_auc", float("nan"))
         st.caption(f"Mean losses in the slice: log loss {fmt(s['log_loss'])} [{fmt(s['log_loss_low'])}, "
                    f"{fmt(s['log_loss_high'])}], Brier {fmt(s['brier'])} [{fmt(s['brier_low'])}, "
-                   f"{fmt(s['brier_high'])}]" + (f", ROC AUC {fmt(s['roc_auc'])}" if s["roc_auc"] == s["roc_auc"]
-                                                 else "") + ".")
+                   f"{fmt(s['brier_high'])}]" + (f", ROC AUC {fmt(auc)}" if auc == auc else "") + ".")
     if s["status"] == "tested":
+        role = ""
+        if s["flagged"]:
+            role = (" It is a **finding**." if s["finding"] else
+                    f" It is an **echo** of {md(s['echo_of'])}" + (f" (explained by {md(s['explained_by'])})"
+                                                                    if s["explained_by"] != s["echo_of"] else "")
+                    + ".")
         st.markdown(f"Audited metric **{md(m.name)}**: slice {fmt(s['metric_value'])} vs rest {fmt(s['rest_value'])}; "
                     f"difference {fmt(s['diff'])} [{fmt(s['diff_low'])}, {fmt(s['diff_high'])}], "
                     f"{md(s['test'])} test, p = {s['p_value']:.3g}, adjusted p = {s['q_value']:.3g}"
                     + (" — **flagged**." if s["flagged"] else
-                       (" — not flagged: it does better than the rest." if not s["worse_than_rest"] else ".")))
+                       (" — not flagged: it does better than the rest." if not s["worse_than_rest"] else "."))
+                    + role)
 
 # ----------------------------------------------------------------------------- two attributes
-if len(attr_names) >= 2 and result.config.max_order == 2:
+if len(attr_names) >= 2 and result.config.max_order >= 2:
     st.header("6 · Two attributes at once")
     pair = charts.worst_pair(result) or (attr_names[0], attr_names[1])
     h1, h2 = st.columns(2)
@@ -390,7 +587,7 @@ if result.fairness is not None:
     st.header("8 · Group fairness")
     st.caption(SENSITIVE + " The four-fifths rule is a US rule of thumb from employment-selection guidelines, not a "
                "legal test everywhere.")
-    fairness_view.show(result.fairness, st, key=run_id)
+    fairness_view.show(result.fairness, st, key=run_id, result=result)
 
 # ----------------------------------------------------------------------------- downloads
 st.header("Take the results away")
@@ -421,6 +618,9 @@ if st.checkbox("Also prepare the report as PDF (needs Chromium on the server)", 
         st.warning(why)
     else:
         st.download_button("report.pdf", pdf, "report.pdf", "application/pdf", key="dl_pdf")
+st.markdown("The same audit from the command line, for the whole table however large (add `--chunk-rows 1000000` "
+            "to bound memory, or `--engine dask --scheduler ADDRESS` for a cluster):")
+st.code(cli_command(settings, name), language="bash")
 st.caption(CAUTION)
 _tick("rest of the page", t)
 TIMINGS["total"] = time.perf_counter() - T0

@@ -8,7 +8,9 @@ from __future__ import annotations
 import hashlib
 
 from audit.faces import charts
+from audit.faces.prose import fairness_findings, finding_text
 from audit.stats.fairness import FairnessResult
+from ui.wording import md
 
 FAIR_COLUMNS = ["group", "n", "share", "selection_rate", "impact_ratio", "below_four_fifths", "selection_q", "tpr",
                 "fpr", "ppv", "tpr_diff", "fpr_diff", "equalized_odds_gap", "equalized_odds_p", "ppv_diff", "ppv_q",
@@ -52,10 +54,34 @@ def table(groups, attribute: str):
     return t
 
 
-def show(fr: FairnessResult, st, *, key: str = "") -> None:
-    """Show the fairness view on the page (``st`` is the streamlit module)."""
-    st.markdown(f"Favourable outcome: predicted **{fr.favorable}**"
-                + (" (the positive prediction)" if fr.favorable_is_positive else "")
+def favourable_words(favorable) -> str:
+    favs = favorable if isinstance(favorable, (tuple, list)) else (favorable,)
+    return " or ".join(f"**{md(f)}**" for f in favs)
+
+
+def show_flags(found, st) -> None:
+    """Every fairness flag with its criterion and direction, in the report's words
+    (``audit.faces.prose.fairness_findings`` and ``finding_text``)."""
+    if not len(found):
+        st.markdown("**No fairness flags**: no group differs from its reference group by more than chance would "
+                    "explain on selection rate, true-positive rate, false-positive rate or positive predictive "
+                    "value, and none is under four-fifths of the reference's selection rate.")
+        return
+    bad = int(found["disadvantaged"].astype(bool).sum())
+    st.markdown(f"**{len(found)} fairness flag{'s' if len(found) != 1 else ''}**, {bad} of them with the group at a "
+                "disadvantage (the criterion, and which way the group differs from its reference):")
+    st.markdown("\n".join(f"- {'▼' if bool(r['disadvantaged']) else '△'} {md(finding_text(r))}"
+                           for _, r in found.iterrows()))
+
+
+def show(fr: FairnessResult, st, *, key: str = "", result=None) -> None:
+    """Show the fairness view on the page (``st`` is the streamlit module); with ``result``, its
+    fairness flags with their direction first."""
+    if result is not None:
+        show_flags(fairness_findings(result), st)
+    st.markdown(f"Favourable outcome: predicted {favourable_words(fr.favorable)}"
+                + (" (the positive prediction)" if fr.favorable_is_positive and not isinstance(fr.favorable, tuple)
+                   else "")
                 + f". Groups under {fr.min_group_share:.0%} of rows are shown but left out of ratios. Differences "
                   "(− ref) are against the reference group of each attribute.")
     for note in fr.notes:

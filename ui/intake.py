@@ -31,9 +31,8 @@ NA_TEXT = ["", "#N/A", "#N/A N/A", "#NA", "-1.#IND", "-1.#QNAN", "-NaN", "-nan",
            "N/A", "NA", "NULL", "NaN", "None", "n/a", "nan", "null"]
 FAST_EXTENSIONS = (".csv", ".tsv", ".txt", "")
 DICT_LIMIT = 1000        # text columns with more distinct values stay plain text
-MAX_LEVELS = 100         # the engine's default limit for categorical attributes
+MAX_LEVELS = 100         # the engine's default limit for categorical attributes (AuditConfig.max_levels)
 MAX_COLUMNS = 10_000     # the engine reader's limit
-ID_MIN_VALUES = 20       # identifier-like: more than this many values and ≥ 90% distinct (the engine's rule)
 
 
 @dataclass(frozen=True)
@@ -55,6 +54,8 @@ class Table:
     columns: dict[str, Column] = field(repr=False)
     reader: str = "pyarrow"
     seconds: dict[str, float] = field(default_factory=dict, compare=False)
+    #: The engine's column profiles (``audit.core.encoding.ColumnProfile``), made when first needed.
+    profiles: dict = field(default_factory=dict, compare=False, repr=False)
 
     @property
     def n_rows(self) -> int:
@@ -238,6 +239,9 @@ def guess_label(table: Table, score: str | None = None) -> str:
         for c in binary:
             if _names_match(c, stem):
                 return c
+    multi = classed_label(table, exclude=(score,) if score else ())
+    if multi is not None:
+        return multi
     for c in binary:
         if _norm(c) in LABEL_WORDS or any(_norm(c).startswith(w + "_") or _norm(c).endswith("_" + w)
                                           for w in LABEL_WORDS if len(w) > 2):
@@ -250,6 +254,39 @@ def guess_label(table: Table, score: str | None = None) -> str:
     return next(iter(table.columns))
 
 
+MAX_PAGE_CLASSES = 20   # the page offers one probability column per class up to this many classes
+
+
+def label_classes(table: Table, label: str) -> list[str]:
+    """The label's classes as text (empty when the column has more than 20 values)."""
+    info = table.columns.get(label)
+    if info is None or info.distinct is None or info.distinct > MAX_PAGE_CLASSES:
+        return []
+    return label_values(table, label)
+
+
+def class_score_columns(table: Table, classes: list[str], exclude: tuple[str, ...] = ()) -> dict[str, str | None]:
+    """One probability column per class, guessed from the names (``p_refer`` for class ``refer``)."""
+    out: dict[str, str | None] = {}
+    probs = [c for c, info in table.columns.items() if info.probability and c not in exclude]
+    for k in classes:
+        hit = [c for c in probs if _stem(c) == _norm(k) and c not in out.values()]
+        out[k] = hit[0] if hit else None
+    return out
+
+
+def classed_label(table: Table, exclude: tuple[str, ...] = ()) -> str | None:
+    """A column with three or more values for at least two of which there is a probability column
+    named after the value (``desk`` with ``p_approve``, ``p_refer``)."""
+    for c, info in table.columns.items():
+        if c in exclude or info.distinct is None or not 3 <= info.distinct <= MAX_PAGE_CLASSES or info.probability:
+            continue
+        found = class_score_columns(table, list(info.values), exclude=(c,))
+        if sum(v is not None for v in found.values()) >= 2:
+            return c
+    return None
+
+
 def guess_pred(table: Table, label: str, score: str | None) -> str | None:
     """A predicted-label column, offered only when there is no probability column."""
     cands = pred_like_columns(table, label)
@@ -258,43 +295,58 @@ def guess_pred(table: Table, label: str, score: str | None) -> str | None:
 
 def pred_like_columns(table: Table, label: str) -> list[str]:
     lab = set(table.columns[label].values) if label in table.columns else set()
+    most = max(2, len(lab))
     out = []
     for c, info in table.columns.items():
-        if c == label or info.distinct is None or info.distinct > 2 or not is_pred_like(c):
+        if c == label or info.distinct is None or info.distinct > most or not is_pred_like(c):
             continue
         if not lab or set(info.values) <= lab:
             out.append(c)
     return out
 
 
-def screen(table: Table, candidates: list[str], *, label: str | None = None) -> tuple[list[str], dict[str, str]]:
-    """Split attribute candidates into those the engine will slice and those it would skip (with why).
+def screen(table: Table, candidates: list[str], *, label: str | None = None, bins: int = 5,
+           max_levels: int = MAX_LEVELS) -> tuple[list[str], dict[str, str]]:
+    """Split attribute candidates into those the engine will slice and those it skips (with why).
 
-    The skip rules are the engine's (``audit.core.encoding.encode_attributes``): every value
-    missing, a single value, identifier-like text, more than 100 categories; a column that
-    looks like a predicted label is not preselected either.
+    The decision is the engine's own: each column is profiled by
+    ``audit.core.encoding.profile_column`` and the encoding fitted by ``fit_encoding`` with the
+    page's settings, exactly as ``audit.run`` does in its first pass, so the page's preselection
+    and the audit cannot drift apart. The one rule of the page's own: a column that looks like a
+    predicted label is not preselected. Profiles are kept with the table (one per column).
     """
+    from audit.core.encoding import fit_encoding, profile_column
+    from audit.errors import AuditInputError
+
     keep, skip = [], {}
-    n = table.n_rows
+    pred_like = set(pred_like_columns(table, label)) if label is not None else set()
+    rest = []
     for c in candidates:
-        info = table.columns[c]
-        nonmiss = n - info.n_missing
-        if label is not None and is_pred_like(c) and c in pred_like_columns(table, label):
+        if c in pred_like:
             skip[c] = "looks like a predicted label; choose it as the predicted label column instead"
-        elif nonmiss == 0:
-            skip[c] = "every value is missing"
-        elif info.distinct == 1 and info.n_missing == 0:
-            skip[c] = "a single value in every row"
-        elif info.numeric:
-            keep.append(c)
-        elif info.distinct is None:
-            skip[c] = f"more than {DICT_LIMIT:,} distinct values: looks like an identifier or free text"
-        elif info.distinct > ID_MIN_VALUES and info.distinct >= 0.9 * nonmiss:
-            skip[c] = f"looks like an identifier ({info.distinct:,} distinct values in {nonmiss:,} rows)"
-        elif info.distinct > MAX_LEVELS:
-            skip[c] = f"{info.distinct:,} distinct values, more than {MAX_LEVELS}; bin or group it first"
         else:
+            rest.append(c)
+    profiles = table.profiles
+    for c in rest:
+        if c not in profiles:
+            profiles[c] = profile_column(table.df[c], c)
+    chosen = [profiles[c] for c in rest]
+    try:
+        encs = [fit_encoding(chosen, n_bins=bins, max_levels=max_levels)]
+    except AuditInputError:  # one column cannot be encoded: fit one by one to say which and why
+        encs = []
+        for p in chosen:
+            try:
+                encs.append(fit_encoding([p], n_bins=bins, max_levels=max_levels))
+            except AuditInputError as exc:
+                skip[p.name] = str(exc).split(";")[0]
+    fitted = {a.name for e in encs for a in e.attributes}
+    reasons = {k: v for e in encs for k, v in e.skipped.items()}
+    for c in rest:
+        if c in fitted:
             keep.append(c)
+        elif c in reasons:
+            skip[c] = reasons[c]
     return keep, skip
 
 
@@ -309,4 +361,5 @@ def label_values(table: Table, label: str) -> list[str]:
 
 
 __all__ = ["Column", "Table", "read_upload", "digest", "guess_label", "guess_score", "guess_pred", "screen",
-           "pred_like_columns", "label_values", "is_pred_like", "binary_columns"]
+           "pred_like_columns", "label_values", "is_pred_like", "binary_columns", "label_classes",
+           "class_score_columns", "classed_label"]

@@ -24,6 +24,8 @@ WIDGETS = {
     "max_order": "Slices",
     "protected": "Protected attributes",
     "favorable": "Favourable predicted outcome for the person",
+    "how": "How the model's prediction is given",
+    "class_score": "Probability of class",
     "min_group_share": "Leave groups under this share out of ratios",
     "reference": "Reference groups",
 }
@@ -40,9 +42,9 @@ _OPENINGS = [
 
 def _plain(message: str) -> str:
     """Drop the API/command-line spellings (``(pred=..., --pred)``, ``pass positive=...``)."""
-    if "multi-class" in message:  # the page audits two-class labels
-        message = message.split(";")[0] + "; the page audits labels with two classes (use the command line or " \
-            "the Python API for more)"
+    if "multi-class" in message:  # a label the page could not read as two or as up to 20 classes
+        message = message.split(";")[0] + "; the page gives one probability column per class for labels with up " \
+            "to 20 classes (use the command line or the Python API for more)"
     text = re.sub(r"\s*\([^()]*--[a-z-]+[^()]*\)", "", message)
     text = re.sub(r"\s*\((?:[a-z_]+=\.\.\.,?\s*)?--[a-z-]+\)", "", text)
     text = re.sub(r"\s*\([a-z_]+=\.\.\.\)", "", text)
