@@ -129,7 +129,7 @@ class AuditResult:
 
     def rest_counts(self, name: str) -> dict[str, int]:
         """Confusion counts of the rows outside slice ``name`` (tp, fp, fn, tn and n for two
-        classes; ``true_<t>_pred_<p>`` cells and n for more)."""
+        classes; ``true_T_pred_P`` cells and n for more)."""
         s = self.slice(name)
         whole = self.slice(ALL)
         keys = ("tp", "fp", "fn", "tn", "n") if len(self.classes) == 2 else tuple(self._cell_names()) + ("n",)
