@@ -131,7 +131,7 @@ def pair_heatmap(result, attr_a: str, attr_b: str, *, width: int | None = None) 
     if names.index(attr_a) > names.index(attr_b):
         attr_a, attr_b = attr_b, attr_a
     levels = {a.name: list(a.levels) for a in result.attributes}
-    cells = sl[(sl["attribute_1"] == attr_a) & (sl["attribute_2"] == attr_b)]
+    cells = sl[(sl["order"] == 2) & (sl["attribute_1"] == attr_a) & (sl["attribute_2"] == attr_b)]
     la, lb = levels[attr_a], levels[attr_b]
     z = np.full((len(la), len(lb)), np.nan)
     cell_text = [["no rows" for _ in lb] for _ in la]

@@ -33,8 +33,9 @@ def limitations(result) -> list[tuple[str, str]]:
          "both of its parts). Read flags as pointers to a region of the data, not as separate findings."),
         ("What the correction covers",
          f"{corr} accounts for the {result.family_size} tests run here on one metric. It does not cover other "
-         "metrics examined, other audits of the same model, slices of three or more attributes, or choices made "
-         "after seeing the results."),
+         "metrics examined, other audits of the same model, "
+         + ("slices of four or more attributes" if cfg.max_order >= 3 else "slices of three or more attributes")
+         + ", or choices made after seeing the results."),
         ("Label quality",
          "Every metric assumes the recorded outcome is correct. If outcomes are missing, delayed or recorded "
          "differently for some groups, the audit measures that difference as well."),
