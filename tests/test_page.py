@@ -377,3 +377,235 @@ def test_fast_reader_gives_the_engines_table(demo_csv, tmp_path):
     ref, _ = read_table(odd, name="odd.csv")
     assert t.df["when"].astype(object).where(t.df["when"].notna(), None).tolist() == \
         ref["when"].astype(object).where(ref["when"].notna(), None).tolist()
+
+
+# ----------------------------------------------------------------------------- findings first (issue 10, 3)
+def test_findings_lead_with_their_echoes_folded_under_them():
+    df = churn_table()
+    at = upload(app().run(), "churn.csv", df)
+    exp = audit.run(df, label="churned", score="p_churn", attributes=["sex", "senior_citizen", "contract", "tenure"])
+    want = exp.findings()
+    assert len(want) >= 2 and want["echoes"].sum() > 0
+    tabs = [t.label for t in at.tabs]
+    assert tabs[:2] == ["Findings and their echoes", "Every tested slice, ranked"]
+    got = next(d.value for d in at.dataframe if "finding_rank" in d.value.columns)
+    assert got["slice"].tolist() == want["slice"].tolist()
+    assert got["echoes"].tolist() == want["echoes"].tolist()
+    np.testing.assert_allclose(got["diff_low_adj"], want["diff_low_adj"])
+    # One expander per finding, saying how many echoes are folded under it, holding exactly those slices.
+    labels = [e.label for e in at.expander if e.label.startswith("Finding ")]
+    assert len(labels) == len(want)
+    for lab, (_, r) in zip(labels, want.iterrows()):
+        assert f"{int(r['echoes'])} echo" in lab
+    first = want.iloc[0]
+    echo_tables = [d.value for d in at.dataframe if "flag_rank" in d.value.columns]
+    assert echo_tables[0]["slice"].tolist() == exp.echoes(first["slice"])["slice"].tolist()
+    assert set(echo_tables[0]["slice"]).isdisjoint(want["slice"])   # echoes are not findings
+    # The full ranked list is one click away (the second tab) and is the engine's ranking.
+    pd.testing.assert_frame_equal(ranked_table(at).reset_index(drop=True),
+                                  exp.ranked()[RANKED].rename(columns={"metric_value": "error_rate"})
+                                  .reset_index(drop=True), check_dtype=False)
+
+
+# ----------------------------------------------------------------------------- fairness (issue 11, 1 and 3)
+def test_favourable_outcome_must_be_chosen_before_fairness_runs():
+    df = churn_table()
+    at = upload(app().run(), "churn.csv", df)
+    assert w(at, "selectbox", "favorable").value == "(choose)"       # no silent default
+    w(at, "multiselect", "protected").set_value(["senior_citizen"])
+    submit(at)
+    msg = " ".join(e.value for e in at.error)
+    assert "Favourable predicted outcome for the person" in msg and "no default" in msg
+    assert not any(h.value.endswith("Group fairness") for h in at.header)
+    assert not at.metric                                              # nothing was computed with protected attributes
+    w(at, "selectbox", "favorable").set_value("no")
+    submit(at)
+    assert not at.error
+    assert any(h.value.endswith("Group fairness") for h in at.header)
+
+
+def test_fairness_flags_show_criterion_and_direction_in_the_reports_words():
+    from audit.faces.prose import fairness_findings, finding_text
+    from ui.wording import md
+
+    df = churn_table()
+    at = upload(app().run(), "churn.csv", df)
+    w(at, "multiselect", "protected").set_value(["senior_citizen", "contract"])
+    w(at, "selectbox", "favorable").set_value("no")
+    submit(at)
+    exp = audit.run(df, label="churned", score="p_churn", attributes=["sex", "senior_citizen", "contract", "tenure"],
+                    protected=["senior_citizen", "contract"], favorable="no")
+    found = fairness_findings(exp)
+    assert len(found) and found["disadvantaged"].any() and not found["disadvantaged"].all()
+    text = "\n".join(m.value for m in at.markdown)
+    assert f"**{len(found)} fairness flags**" in text
+    for _, r in found.iterrows():                    # the same sentence as report.html, with its direction
+        assert md(finding_text(r)) in text
+    assert "lower selection rate than 'no'" in finding_text(found.iloc[0])
+
+
+# ----------------------------------------------------------------------------- three or more classes (issue 12)
+def _routing(n=20_000):
+    from demo.routing import generate
+
+    return generate(rows=n)  # the multi-class demo, its own seed
+
+
+def test_three_classes_end_to_end():
+    import json
+
+    from audit.faces.prose import class_drivers
+
+    df = _routing()
+    at = upload(app().run(), "routing.csv", df)
+    assert w(at, "selectbox", "label").value == "desk"
+    assert w(at, "selectbox", "how").value == "one probability column per class"
+    boxes = {b.label: b.value for b in at.selectbox if (b.key or "").startswith("class_score_")}
+    assert boxes == {"Probability of class approve": "p_approve", "Probability of class decline": "p_decline",
+                     "Probability of class refer": "p_refer"}
+    assert not [b for b in at.selectbox if (b.key or "").startswith("positive")]     # no positive class
+    opts = w(at, "selectbox", "metric").options
+    assert [o.split(" — ")[0] for o in opts] == ["error_rate", "accuracy", "macro_f1", "log_loss", "brier"] + [
+        f"{b}:{k}" for k in ("approve", "decline", "refer") for b in ("recall", "precision", "f1")]
+    assert w(at, "multiselect", "favorable_set").options == ["approve", "decline", "refer"]
+    w(at, "selectbox", "metric").set_value("recall:refer")
+    w(at, "multiselect", "protected").set_value(["age_band"])
+    w(at, "multiselect", "favorable_set").set_value(["approve"])
+    submit(at)
+    assert not at.error
+    score = {"approve": "p_approve", "decline": "p_decline", "refer": "p_refer"}
+    attrs = w(at, "multiselect", "attributes").value
+    assert attrs == ["channel", "region", "product", "age_band"]
+    exp = audit.run(df, label="desk", score=score, attributes=attrs, metric="recall:refer", protected=["age_band"],
+                    favorable=["approve"])
+    pd.testing.assert_frame_equal(ranked_table(at).reset_index(drop=True),
+                                  exp.ranked()[RANKED].rename(columns={"metric_value": "recall:refer"})
+                                  .reset_index(drop=True), check_dtype=False)
+    # Per-class table beside the averages: the engine's per-class figures.
+    pc = next(d.value for d in at.dataframe if "support" in d.value.columns and "class" in d.value.columns)
+    for _, r in pc.iterrows():
+        want = exp.overall["per_class"][r["class"]]
+        assert r["support"] == want["support"] and r["predicted"] == want["predicted"]
+        assert r["recall"] == pytest.approx(want["recall"])
+    avg = next(d.value for d in at.dataframe if "metric" in d.value.columns and "value" in d.value.columns)
+    assert {"macro_f1", "micro_f1", "weighted_f1", "log_loss", "brier"} <= set(avg["metric"])
+    # K x K confusion of the whole table: counts from scikit-learn's confusion_matrix on the same rows.
+    from sklearn.metrics import confusion_matrix
+
+    pred = df[["p_approve", "p_decline", "p_refer"]].to_numpy().argmax(axis=1)
+    cm = confusion_matrix(df["desk"], np.array(["approve", "decline", "refer"])[pred],
+                          labels=["approve", "decline", "refer"])
+    spec = next(json.loads(c.proto.spec) for c in at.get("plotly_chart") if c.key == "confusion_all")
+    shown = [[int(cell.split("</b>")[0].replace("<b>", "").replace(",", "")) for cell in row]
+             for row in spec["data"][0]["text"]]
+    assert shown == cm.tolist()
+    # The planted slice: pick it, see its K x K counts and the classes that drive it.
+    w(at, "selectbox", "slice_pick").set_value("channel=partner").run()
+    assert not at.exception
+    spec = next(json.loads(c.proto.spec) for c in at.get("plotly_chart") if c.key == "cm_slice")
+    part = df[df["channel"] == "partner"]
+    cm_s = confusion_matrix(part["desk"], np.array(["approve", "decline", "refer"])[pred[df["channel"] == "partner"]],
+                            labels=["approve", "decline", "refer"])
+    assert [[int(c.split("</b>")[0].replace("<b>", "").replace(",", "")) for c in row]
+            for row in spec["data"][0]["text"]] == cm_s.tolist()
+    drivers = next(d.value for d in at.dataframe if "gap" in d.value.columns)
+    pd.testing.assert_frame_equal(drivers.reset_index(drop=True), class_drivers(exp, "channel=partner"),
+                                  check_dtype=False)
+    assert drivers.iloc[0]["class"] == "refer" and drivers.iloc[0]["rate"] == "recall"   # the planted weakness
+    assert any("Driven by: recall of 'refer'" in m.value for m in at.markdown)      # under its finding too
+    assert any("approve" in m.value and "Favourable outcome" in m.value for m in at.markdown)
+
+
+def test_three_classes_from_a_predicted_label_column():
+    df = _routing(3000)
+    probs = df[["p_approve", "p_decline", "p_refer"]].to_numpy()
+    df["desk_pred"] = np.array(["approve", "decline", "refer"])[probs.argmax(axis=1)]
+    df = df.drop(columns=["p_approve", "p_decline", "p_refer"])
+    at = upload(app().run(), "routing.csv", df)
+    w(at, "selectbox", "label").set_value("desk").run()
+    assert w(at, "selectbox", "how").value == "a predicted-label column"
+    assert w(at, "selectbox", "pred_multi").value == "desk_pred"
+    opts = [o.split(" — ")[0] for o in w(at, "selectbox", "metric").options]
+    assert "log_loss" not in opts and "macro_f1" in opts and "f1:refer" in opts
+    submit(at)
+    assert not at.error
+    exp = audit.run(df, label="desk", pred="desk_pred", attributes=w(at, "multiselect", "attributes").value)
+    assert metric_box(at, "Flagged") == f"{exp.status_counts()['flagged']:,}"
+    from ui.wording import md
+
+    assert any("Prediction: " + md("the predicted-label column 'desk_pred'") in c.value for c in at.caption)
+
+
+# ----------------------------------------------------------------------------- a finished run's folder (issue 13)
+def test_output_folder_is_browsed_without_recomputing(tmp_path, monkeypatch):
+    from audit.faces.export import save
+
+    df = churn_table()
+    res = audit.run(df, label="churned", score="p_churn", attributes=["sex", "senior_citizen", "contract", "tenure"],
+                    protected=["senior_citizen"], favorable="no")
+    save(res, str(tmp_path / "run1"), report=False)
+    at = app().run()
+    calls = []
+    monkeypatch.setattr(audit.engine, "run", lambda *a, **k: calls.append(1))
+    at.text_input(key="run_folder").input(str(tmp_path / "run1")).run()
+    assert not at.exception and not at.error
+    assert any(h.value == "A finished run, read from its folder" for h in at.header)
+    got = next(d.value for d in at.dataframe if "finding_rank" in d.value.columns)
+    assert got["slice"].tolist() == res.findings()["slice"].tolist()
+    assert got["echoes"].tolist() == res.findings()["echoes"].tolist()
+    ranked = ranked_table(at)
+    assert ranked["slice"].tolist() == res.ranked()["slice"].tolist()
+    np.testing.assert_allclose(ranked["q_value"], res.ranked()["q_value"], rtol=1e-9)
+    from audit.faces.prose import fairness_findings, finding_text
+    from ui.wording import md
+
+    text = "\n".join(m.value for m in at.markdown)
+    for _, r in fairness_findings(res).iterrows():
+        assert md(finding_text(r)) in text
+    assert metric_box(at, "Findings") == f"{len(res.findings()):,}"
+    assert calls == []
+
+
+def test_output_folder_path_is_guarded(tmp_path):
+    from audit.faces.export import save
+
+    df = churn_table(n=1500)
+    save(audit.run(df, label="churned", score="p_churn", attributes=["sex", "contract"]), str(tmp_path / "ok"),
+         report=False)
+    (tmp_path / "linked").mkdir()
+    (tmp_path / "linked" / "summary.json").write_bytes((tmp_path / "ok" / "summary.json").read_bytes())
+    os.symlink("/etc/passwd", tmp_path / "linked" / "slices.csv")
+    (tmp_path / "foreign").mkdir()
+    (tmp_path / "foreign" / "slices.csv").write_text("slice,order,finding\n")
+    (tmp_path / "foreign" / "summary.json").write_text('{"tool": {"name": "other"}}')
+    at = app().run()
+    for path, why in [("/etc", "no slices.csv"), (str(tmp_path / "linked"), "is a link"),
+                      (str(tmp_path / "foreign"), "not written by Fissure"),
+                      (str(tmp_path / "ok" / "slices.csv"), "is not a folder"),
+                      (str(tmp_path / "nowhere"), "is not a folder")]:
+        at.text_input(key="run_folder").input(path).run()
+        assert not at.exception, path
+        msg = " ".join(e.value for e in at.error).replace("\\", "")
+        assert "Output folder of a finished run" in msg and why in msg, (path, msg)
+        assert any(h.value.endswith("The whole model first") for h in at.header)   # the page goes on with the demo
+    from ui import folder_view
+
+    with pytest.raises(folder_view.Refused, match="runs folder"):
+        folder_view.check_folder(str(tmp_path / "ok"), root=str(tmp_path / "elsewhere"))
+    assert folder_view.check_folder(str(tmp_path / "ok"), root=str(tmp_path)) == os.path.realpath(tmp_path / "ok")
+
+
+def test_attribute_screen_is_the_engines_decision():
+    """The page's preselection equals the attributes the engine keeps when given every candidate."""
+    from ui import intake
+
+    df = churn_table(n=2000)
+    df["constant"] = "x"
+    df["empty"] = np.nan
+    df["row_no"] = np.arange(len(df))
+    t = intake.Table(df=df, source=None, columns=intake._profile(df, fast=False))
+    cands = [c for c in df.columns if c not in ("churned", "p_churn", "churn_pred")]
+    keep, skip = intake.screen(t, cands, label="churned")
+    res = audit.run(df, label="churned", score="p_churn", attributes=cands)
+    assert keep == [a.name for a in res.attributes]
+    assert skip == res.skipped

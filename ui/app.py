@@ -307,7 +307,7 @@ else:
                 score_map[k] = col
     else:
         pred_opts = [NONE] + [c for c in cols if c != label]
-        pred = choose(c3, WIDGETS["pred"], pred_opts, pred_guess or NONE, "pred", sig, label, "multi")
+        pred = choose(c3, WIDGETS["pred"], pred_opts, pred_guess or NONE, "pred_multi", sig, label)
         pred = None if pred == NONE else pred
     used = (label, pred, *score_map.values())
 
