@@ -316,13 +316,49 @@ def _num(x, digits=4) -> str:
 
 
 def terminal_summary(result, top: int = 10, *, gate=None) -> str:
-    """The few lines the command line prints: overall metrics, slice counts, the worst slices,
-    fairness flags with their direction, the gate and the caution."""
+    """The few lines the command line prints: overall metrics, slice counts (and triples), the
+    findings with their echoes folded under each, the worst tested slices, fairness flags with
+    their direction, the gate and the caution."""
     st = result.status_counts()
     lines = _multiclass_head(result) if is_multiclass(result) else _binary_head(result)
+    n_find = int(result.slices["finding"].sum()) if "finding" in result.slices else 0
+    roles = f" ({n_find} finding(s), {st['flagged'] - n_find} echo(es))" if st["flagged"] else ""
     lines.append(f"slices: {st.get('tested', 0)} tested (m = {result.family_size}), {st.get('below_support', 0)} "
-                 f"below support, {st['flagged']} flagged at {result.config.correction} {result.config.alpha:g}")
+                 f"below support, {st['flagged']} flagged at {result.config.correction} {result.config.alpha:g}"
+                 + roles)
+    tri = triples_words(result)
+    if tri:
+        lines.append("triples: " + tri)
     return _summary_tail(result, lines, top, gate)
+
+
+def triples_words(result) -> str:
+    """How many triples of values were considered, pruned and tested, in one line ("" below order 3)."""
+    tri = (result.method or {}).get("triples")
+    if not tri:
+        return ""
+    return (f"{tri['possible']:,} considered, {tri['pruned']:,} pruned (one of their pairs has fewer than "
+            f"{tri['min_rows']} rows), {tri['listed']:,} listed, {tri['tested']:,} tested, "
+            f"{tri['flagged']:,} flagged")
+
+
+def finding_groups(result) -> list[tuple[Any, Any]]:
+    """Each finding (worst first, by ``finding_rank``) with its echoes (by ``flag_rank``):
+    a list of (finding row, echoes frame). The terminal, the report and summary.json read it."""
+    if "finding" not in result.slices:
+        return []
+    return [(r, result.echoes(r["slice"])) for _, r in result.findings().iterrows()]
+
+
+def role_words(row, finding_rank: dict[str, int]) -> str:
+    """A flagged slice's role in words: 'finding 1' or 'echo of finding 2 (explained by X)'."""
+    if not bool(row.get("flagged", False)):
+        return ""
+    if bool(row["finding"]):
+        return f"finding {int(row['finding_rank'])}"
+    of = row["echo_of"]
+    via = row["explained_by"]
+    return (f"echo of finding {finding_rank.get(of, '?')}" + (f" (explained by {via})" if via and via != of else ""))
 
 
 def _binary_head(result) -> list[str]:
@@ -379,14 +415,45 @@ def _summary_tail(result, lines: list[str], top: int, gate) -> str:
     m = result.metric
     if result.skipped:
         lines.append("skipped: " + "; ".join(f"{k} ({v})" for k, v in result.skipped.items()))
+    groups = finding_groups(result)
+    if groups:
+        lvl = (result.method or {}).get("explanations", {}).get("selection_level")
+        lvl_words = f"{lvl:.1%} interval adjusted for the selection" if lvl else "interval adjusted for the selection"
+        lines.append(f"findings by {m.name}, worst first (slice − rest, {lvl_words}); each echo is folded under the "
+                     f"finding that explains it:")
+        for r, ech in groups[:top]:
+            lines.append(f"  {int(r['finding_rank'])}. {r['slice']}  [flag rank {int(r['flag_rank'])}, "
+                         f"{len(ech)} echo(es)]")
+            lines.append(f"     n={int(r['n']):,}  {m.name} {_num(r['metric_value'])} vs rest {_num(r['rest_value'])}"
+                         f"  diff {_num(r['diff'], 3)} [{_num(r['diff_low_adj'], 3)}, {_num(r['diff_high_adj'], 3)}]"
+                         f"  q={fmt_p(r['q_value'])}")
+            if len(ech):
+                shown: list[str] = []
+                for name in ech["slice"]:  # by flag rank, as many as fit one line of about 100 characters
+                    if shown and sum(len(x) + 2 for x in shown) + len(name) > 100:
+                        break
+                    shown.append(name)
+                more = f", … and {len(ech) - len(shown)} more" if len(ech) > len(shown) else ""
+                lines.append("     echoes: " + ", ".join(shown) + more)
+        if len(groups) > top:
+            lines.append(f"  … {len(groups) - top} more finding(s) in report.html and slices.csv")
     ranked = result.ranked().head(top)
     if len(ranked):
-        lines.append(f"worst slices by {m.name} (slice − rest, {int(round(result.config.level * 100))}% interval):")
-        w = min(60, max(len(s) for s in ranked["slice"]))
+        finding_rank = {r["slice"]: int(r["finding_rank"]) for r, _ in groups}
+        lines.append(f"worst tested slices by {m.name} (slice − rest, {int(round(result.config.level * 100))}% "
+                     f"interval; every slice is in slices.csv):")
+        w = min(90, max(len(s) for s in ranked["slice"]))
         for _, r in ranked.iterrows():
-            flag = "FLAG" if r["flagged"] else "    "
+            if not r["flagged"]:
+                flag = ""
+            elif "finding" not in r.index:
+                flag = "flagged"
+            elif r["finding"]:
+                flag = f"finding {int(r['finding_rank'])}"
+            else:
+                flag = f"echo of {finding_rank.get(r['echo_of'], '?')}"
             name = r["slice"] if len(r["slice"]) <= w else r["slice"][: w - 1] + "…"
-            lines.append(f"  {int(r['rank']):>3} {flag} {name:<{w}} n={int(r['n']):<7} {_num(r['metric_value'])} "
+            lines.append(f"  {int(r['rank']):>3} {flag:<12} {name:<{w}} n={int(r['n']):<7} {_num(r['metric_value'])} "
                          f"diff {_num(r['diff'], 3):>7} [{_num(r['diff_low'], 3)}, {_num(r['diff_high'], 3)}] "
                          f"q={fmt_p(r['q_value'])}")
     fr = result.fairness
