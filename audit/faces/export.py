@@ -20,7 +20,8 @@ import numpy as np
 import pandas as pd
 
 from ..errors import AuditInputError
-from .prose import CAUTION, fairness_findings, is_multiclass, limitations, method_notes, prediction_words
+from .prose import (CAUTION, fairness_findings, finding_groups, is_multiclass, limitations, method_notes,
+                    prediction_words)
 
 _FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
 
@@ -101,13 +102,29 @@ def summary(result, *, created: str | None = None, gate=None) -> dict[str, Any]:
     cfg = result.config
     counts = result.status_counts()
     flagged = result.flagged()
+    roles = "finding" in flagged.columns
+    if roles:
+        flagged = flagged.sort_values("flag_rank", kind="stable")
     top = [
         {"rank": int(r["rank"]), "slice": r["slice"], "n": int(r["n"]), "metric_value": _f(r["metric_value"]),
          "metric_low": _f(r["metric_low"]), "metric_high": _f(r["metric_high"]), "rest_value": _f(r["rest_value"]),
          "diff": _f(r["diff"]), "diff_low": _f(r["diff_low"]), "diff_high": _f(r["diff_high"]),
-         "p_value": _f(r["p_value"]), "q_value": _f(r["q_value"])}
+         "p_value": _f(r["p_value"]), "q_value": _f(r["q_value"]),
+         **({"flag_rank": int(r["flag_rank"]), "diff_low_adj": _f(r["diff_low_adj"]),
+             "diff_high_adj": _f(r["diff_high_adj"]), "severity_adj": _f(r["severity_adj"]),
+             "finding": bool(r["finding"]), "explained_by": r["explained_by"] or None,
+             "echo_of": r["echo_of"] or None} if roles else {})}
         for _, r in flagged.iterrows()
     ]
+    findings = [
+        {"finding_rank": int(r["finding_rank"]), "flag_rank": int(r["flag_rank"]), "rank": int(r["rank"]),
+         "slice": r["slice"], "order": int(r["order"]), "n": int(r["n"]), "metric_value": _f(r["metric_value"]),
+         "rest_value": _f(r["rest_value"]), "diff": _f(r["diff"]), "diff_low_adj": _f(r["diff_low_adj"]),
+         "diff_high_adj": _f(r["diff_high_adj"]), "severity_adj": _f(r["severity_adj"]),
+         "q_value": _f(r["q_value"]), "echoes": len(ech), "echo_slices": [str(x) for x in ech["slice"]]}
+        for r, ech in finding_groups(result)
+    ]
+    tri = (result.method or {}).get("triples")
     out: dict[str, Any] = {
         "tool": {"name": "fissure", "version": result.version},
         "created": created or now_utc(),
@@ -132,8 +149,12 @@ def summary(result, *, created: str | None = None, gate=None) -> dict[str, Any]:
         "slices": {"total": int((result.slices["order"] > 0).sum()), "tested": counts.get("tested", 0),
                    "below_support": counts.get("below_support", 0), "no_rest": counts.get("no_rest", 0),
                    "undefined": counts.get("undefined", 0), "flagged": counts["flagged"],
-                   "family_size": result.family_size},
+                   "family_size": result.family_size,
+                   "findings": len(findings), "echoes": counts["flagged"] - len(findings)},
+        "findings": findings,
         "flagged": top,
+        "triples": None if not tri else {k: int(tri[k]) for k in ("possible", "pruned", "kept", "listed", "tested",
+                                                                 "flagged", "min_rows")},
         "limitations": [{"title": t, "text": x} for t, x in limitations(result)],
         "cautions": CAUTION,
         "environment": result.environment,
