@@ -158,9 +158,12 @@ def test_opening_says_what_was_audited_what_to_decide_and_the_gate(demo_run):
     raw = (demo_run / "out" / "report.html").read_text()
     opening = raw[raw.index("<section id='opening'>"):raw.index("<section id='identity'>")]
     text = re.sub(r"<[^>]+>", "", opening)
-    n = json.load(open(demo_run / "out" / "summary.json"))["slices"]["flagged"]
+    counts = json.load(open(demo_run / "out" / "summary.json"))["slices"]
+    n, k = counts["flagged"], counts["findings"]
     assert "Personal-loan delinquency (version 3.2) on 20,000 rows of predictions.csv" in text
-    assert f"{n} finding(s) need a decision: {n} flagged slice(s) and 0 fairness finding(s)" in text
+    # one decision per finding; the echoes are folded under it (issue 10, part 3)
+    assert (f"{k} finding(s) need a decision: {k} slice finding(s) ({n} flagged slice(s): {k} finding(s) and "
+            f"{n - k} echo(es) folded under them) and 0 fairness finding(s)") in text
     assert "Release gate: BLOCKED" in text and "What to do next" in text
     assert "favourable outcome: predicted 0" in text
     # the caution: once, at the top, prominent

@@ -14,8 +14,8 @@ import shutil
 import subprocess
 import tempfile
 
-from .prose import (CAUTION, DRIVERS_RULE, class_drivers, fairness_findings, finding_text, fmt_p, is_multiclass,
-                    limitations, method_notes, prediction_words)
+from .prose import (CAUTION, DRIVERS_RULE, class_drivers, fairness_findings, finding_groups, finding_text, fmt_p,
+                    is_multiclass, limitations, method_notes, prediction_words, role_words, triples_words)
 
 SECTIONS = [
     ("opening", "1. Summary for the reviewer"),
@@ -54,11 +54,16 @@ pre { background: #f4f6f9; padding: .8em; overflow-x: auto; font-size: 12px; whi
 .chart { width: 900px; max-width: 100%; margin: .6em 0 0; page-break-inside: avoid; }
 figure { margin: 0 0 1.2em; } figcaption { font-size: 12.5px; color: var(--muted); max-width: 900px; }
 .blank { display: inline-block; min-width: 12em; border-bottom: 1px solid var(--ink); height: 1.2em; }
+details.fold { margin: .3em 0 .8em; } details.fold > summary { cursor: pointer; color: var(--ink); }
+details.fold[open] > summary { margin-bottom: .3em; } ol.findings > li { margin-bottom: .5em; }
+.echo-names { font-size: 12.5px; color: var(--muted); }
 @page { margin: 16mm 14mm; }  /* no fixed size: prints on A4 or Letter as the printer is set */
 @media print {
   body { max-width: none; margin: 0; font-size: 11px; }
   section { page-break-before: always; } section#opening { page-break-before: avoid; }
   .chart { width: 170mm; height: auto; } table { page-break-inside: auto; } tr { page-break-inside: avoid; }
+  details.fold::details-content { content-visibility: visible; display: block; }
+  details.fold > summary { list-style: none; font-weight: bold; }
 }
 """
 
@@ -186,6 +191,9 @@ def build_html(result, *, command: str | None = None, created: str | None = None
     parts: list[str] = []
     title = f"Slice audit of {cfg.model_name}" if cfg.model_name else "Slice audit"
     flagged = result.flagged()
+    if "flag_rank" in flagged.columns:
+        flagged = flagged.sort_values("flag_rank", kind="stable")
+    groups = finding_groups(result)
     top = len(flagged) if top is None else top
     found = fairness_findings(result)
     fr = result.fairness
@@ -200,13 +208,15 @@ def build_html(result, *, command: str | None = None, created: str | None = None
                + (f" (version {e(cfg.model_version)})" if cfg.model_version else "")
                + f" on <b>{result.n_rows:,}</b> rows of {e(src.name or 'an in-memory table')}: true label "
                f"<code>{e(cfg.label)}</code>, {label_words}; audited metric <b>{e(m.title)}</b> "
-               f"over {len(result.attributes)} attribute(s) and their pairs ({st.get('tested', 0):,} slices "
+               f"over {len(result.attributes)} attribute(s) {_orders_words(cfg.max_order)} ({st.get('tested', 0):,} slices "
                f"tested, corrected with {e(notes['correction']['title'])} at {cfg.alpha:g}).")
     if fr is not None:
         audited += (f" Group fairness on {e(', '.join(a for a in fr.references if ' & ' not in a))}, favourable "
                     f"outcome: predicted <b>{e(fr.favorable)}</b>.")
-    n_dec = len(flagged) + len(found)
-    decide = (f"<b>{n_dec}</b> finding(s) need a decision: <b class='flag'>{len(flagged)}</b> flagged slice(s)"
+    n_dec = len(groups) + len(found)
+    decide = (f"<b>{n_dec}</b> finding(s) need a decision: <b class='flag'>{len(groups)}</b> slice finding(s) "
+              f"({len(flagged)} flagged slice(s): {len(groups)} finding(s) and {len(flagged) - len(groups)} "
+              f"echo(es) folded under them)"
               + (f" and <b class='flag'>{len(found)}</b> fairness finding(s) in {fair_groups} protected group(s)"
                  f" ({int(found['disadvantaged'].sum()) if len(found) else 0} at a disadvantage, "
                  f"{int((~found['disadvantaged'].astype(bool)).sum()) if len(found) else 0} in the group's favour)"
@@ -214,8 +224,8 @@ def build_html(result, *, command: str | None = None, created: str | None = None
               + ". Each is listed in section 8 for a decision.")
     steps = []
     if n_dec:
-        steps.append("Read each flagged slice in section 5 and each fairness finding in section 6: size, "
-                     "interval and direction.")
+        steps.append("Read each finding in section 5, with the echoes folded under it, and each fairness finding "
+                     "in section 6: size, interval and direction.")
         steps.append("Record a decision for each in section 8 (for example accept with a rationale, remediate, "
                      "monitor, escalate), with an owner and a date.")
     else:
@@ -229,7 +239,8 @@ def build_html(result, *, command: str | None = None, created: str | None = None
     steps.append("Have the review signed in section 8.")
     opening = (f"<div class='caution'><b>Read this first.</b> {e(CAUTION)}</div>"
                f"<h3>What was audited</h3><p>{audited}</p>"
-               f"<h3>What needs a decision</h3><p>{decide}</p>" + _gate_html(gate)
+               f"<h3>What needs a decision</h3><p>{decide}</p>" + _opening_findings(result, groups)
+               + _gate_html(gate)
                + "<h3>What to do next</h3><ol>" + "".join(f"<li>{x}</li>" for x in steps) + "</ol>"
                "<p class='muted' id='script-note'>The charts in this document are drawn by a script embedded in "
                "the file (no network needed). A reader with scripts disabled, or a print made without running "
@@ -295,11 +306,13 @@ def build_html(result, *, command: str | None = None, created: str | None = None
                 ["Test of slice against rest", e(notes["test"])], ["Effect size", e(notes["effect_size"])],
                 ["Multiple-testing correction", e(f"{notes['correction']['title']}: controls the "
                                                   f"{notes['correction']['controls']} ({notes['correction']['reference']}) "
-                                                  f"over the family of {result.family_size} tested slices of orders 1 and 2")],
+                                                  f"over the family of {result.family_size} "
+                                                  f"{notes['correction']['family']}")],
                 ["Minimum support", e(f"{cfg.min_support} rows, and {cfg.min_metric_support} "
                                       f"{_support_words(m.denominator)} (the rows the metric is a share of), "
                                       f"in the slice and in the rest")],
                 ["Flag rule", e(notes["flag_rule"])], ["Ranking", e(notes["ranking"])],
+                *_findings_method_rows(result, notes),
                 ["Undefined values", e(notes["undefined"])], ["Log-loss clipping", e(notes["log_loss_clipping"])],
                 ["ROC AUC", e(notes["roc_auc"])]]))
     parts.append(_section("method", meth))
@@ -317,8 +330,23 @@ def build_html(result, *, command: str | None = None, created: str | None = None
         orows.append([e(_title(k)), _f(o[k]), ci])
     if o.get("roc_auc") is not None:
         orows.append(["ROC AUC", _f(o["roc_auc"]), "—"])
-    find = f"<h3>The whole table ({result.n_rows:,} rows)</h3>" + _table(["metric", "value", f"{lvl}% interval"], orows,
-                                                                         num_cols=(1,))
+    n_find = len(groups)
+    find = ("<p>" + f"Slices tested: <b>{st.get('tested', 0)}</b> (family size m = {result.family_size}); below "
+            f"support: <b>{st.get('below_support', 0)}</b>; without enough rest: {st.get('no_rest', 0)}; undefined: "
+            f"{st.get('undefined', 0)}; <span class='flag'>flagged: {st['flagged']}</span> "
+            f"(<b>{n_find}</b> finding(s), {st['flagged'] - n_find} echo(es)).</p>")
+    if triples_words(result):
+        find += f"<p id='triples-counts'>Triples of values: {e(triples_words(result))}.</p>"
+    if len(flagged):
+        find += _findings_html(result, groups, flagged, lvl, top)
+        if multi:
+            drive, k = _drivers_html(result, flagged.head(top))
+            find += drive
+            n_charts += k
+    else:
+        find += "<p>No slice was flagged at the chosen settings.</p>"
+    find += f"<h3>The whole table ({result.n_rows:,} rows)</h3>" + _table(["metric", "value", f"{lvl}% interval"],
+                                                                          orows, num_cols=(1,))
     if multi:
         find, k = _multiclass_whole(result, find)
         n_charts += k
@@ -328,26 +356,6 @@ def build_html(result, *, command: str | None = None, created: str | None = None
                         f"The two other cells are the two kinds of error (actual {neg} predicted {pos}, actual {pos} "
                         f"predicted {neg}) that the slice tables break down by group.")
         n_charts += 1
-    find += ("<p>" + f"Slices tested: <b>{st.get('tested', 0)}</b> (family size m = {result.family_size}); below "
-             f"support: <b>{st.get('below_support', 0)}</b>; without enough rest: {st.get('no_rest', 0)}; undefined: "
-             f"{st.get('undefined', 0)}; <span class='flag'>flagged: {st['flagged']}</span>.</p>")
-    if len(flagged):
-        frows = []
-        for _, r in flagged.head(top).iterrows():
-            frows.append([str(int(r["rank"])), e(r["slice"]), f"{int(r['n']):,}", _f(r["metric_value"]),
-                          f"[{_f(r['metric_low'])}, {_f(r['metric_high'])}]", _f(r["rest_value"]),
-                          f"{_f(r['diff'])} [{_f(r['diff_low'])}, {_f(r['diff_high'])}]", _p(r["q_value"])])
-        find += (f"<h3>Flagged slices, worst first ({min(top, len(flagged))} of {len(flagged)} shown)</h3>"
-                 + _table(["rank", "slice", "n", m.title, f"{lvl}% interval", "rest", "slice − rest [interval]",
-                           "adjusted p"], frows, num_cols=(0, 2, 3, 5, 7)))
-        if len(flagged) > top:
-            find += f"<p class='muted'>All {len(flagged)} flagged slices are listed in slices.csv.</p>"
-        if multi:
-            drive, k = _drivers_html(result, flagged.head(top))
-            find += drive
-            n_charts += k
-    else:
-        find += "<p>No slice was flagged at the chosen settings.</p>"
     if len(result.ranked()):
         find += _figure(charts.top_slices(result, k=15), "fig-top",
                         f"One line per slice, worst-ranked at the top. The marker is the slice's {m.title} with "
@@ -397,10 +405,15 @@ def build_html(result, *, command: str | None = None, created: str | None = None
     signs = [[e(role), "<span class='blank'></span>", "<span class='blank'></span>", "<span class='blank'></span>"]
              for role in ("Prepared by", "Independent review by", "Approved by")]
     sign = _table(["role", "name", "signature", "date"], signs)
-    drows = [[f"S{int(r['rank'])}", "slice", e(f"{r['slice']}: {m.title} {_f(r['metric_value'])} vs rest "
-                                               f"{_f(r['rest_value'])}, adjusted p {fmt_p(r['q_value'])}"),
-              "<span class='blank'></span>", "<span class='blank'></span>"]
-             for _, r in flagged.head(top).iterrows()]
+    drows = []
+    for r, ech in groups:
+        echo_line = (f"<br><span class='echo-names'>Decided with it, its {len(ech)} echo(es): "
+                     f"{_echo_names(ech, limit=40)}</span>" if len(ech) else "")
+        drows.append([f"S{int(r['finding_rank'])}", "slice finding",
+                      e(f"{r['slice']}: {m.title} {_f(r['metric_value'])} vs rest {_f(r['rest_value'])}, slice − rest "
+                        f"{_f(r['diff'])} ({_adj_words(result)} [{_f(r['diff_low_adj'])}, {_f(r['diff_high_adj'])}]), "
+                        f"adjusted p {fmt_p(r['q_value'])}") + echo_line,
+                      "<span class='blank'></span>", "<span class='blank'></span>"])
     for i, (_, r) in enumerate(found.iterrows(), start=1):
         cls = "flag" if r["disadvantaged"] else "favour"
         drows.append([f"F{i}", "fairness", f"<span class='{cls}'>{e(finding_text(r))}</span>",
@@ -409,7 +422,8 @@ def build_html(result, *, command: str | None = None, created: str | None = None
         drows.append(["G", "release gate", e("blocked: " + "; ".join(gate.reasons)), "<span class='blank'></span>",
                       "<span class='blank'></span>"])
     if drows:
-        sign += ("<h3>Decision on each finding</h3><p class='muted'>S: flagged slice, by rank (section 5); "
+        sign += ("<h3>Decision on each finding</h3><p class='muted'>S: slice finding, by finding number (section "
+                 "5); one decision covers the finding and the echoes named under it. "
                  "F: fairness finding (section 6). For example: accept with rationale, remediate, monitor, "
                  "escalate.</p>" + _table(["#", "kind", "finding", "decision", "owner / due date"], drows))
     parts.append(_section("signoff", sign))
@@ -435,6 +449,117 @@ def build_html(result, *, command: str | None = None, created: str | None = None
              f"this report are not drawn. Every number they show is in the tables below and in slices.csv"
              f"{' / fairness.csv' if fr is not None else ''}.</div></noscript>")
     return head + intro + "".join(parts) + "</body></html>\n"
+
+
+def _orders_words(max_order: int) -> str:
+    return {1: "one at a time", 2: "and their pairs"}.get(max_order, "with their pairs and triples")
+
+
+def _selection_level(result):
+    return (result.method or {}).get("explanations", {}).get("selection_level")
+
+
+def _adj_words(result) -> str:
+    lvl = _selection_level(result)
+    return f"{lvl:.1%} adjusted interval" if lvl else "adjusted interval"
+
+
+def _echo_names(ech, limit: int | None = None) -> str:
+    names = list(ech["slice"])
+    shown = names if limit is None else names[:limit]
+    more = f"; … and {len(names) - len(shown)} more" if len(names) > len(shown) else ""
+    return "; ".join(e(x) for x in shown) + more
+
+
+def _opening_findings(result, groups, limit: int = 20) -> str:
+    """The findings in the summary for the reviewer, worst first, each with its echoes folded."""
+    if not groups:
+        return ""
+    m = result.metric
+    items = []
+    for r, ech in groups[:limit]:
+        fold = ""
+        if len(ech):
+            # the first few by flag rank: the opening stays about one printed page; section 5 lists them all
+            fold = (f"<details class='fold'><summary>{len(ech)} echo(es) folded under it</summary>"
+                    f"<span class='echo-names'>{_echo_names(ech, limit=6)}"
+                    + (" (all in section 5)" if len(ech) > 6 else "") + "</span></details>")
+        items.append(f"<li><b>{e(r['slice'])}</b> ({int(r['n']):,} rows): {e(m.title)} {_f(r['metric_value'])} "
+                     f"against {_f(r['rest_value'])} for the rest; slice − rest {_f(r['diff'])}, "
+                     f"{_adj_words(result)} [{_f(r['diff_low_adj'])}, {_f(r['diff_high_adj'])}]"
+                     + (fold if fold else "; no echoes") + "</li>")
+    more = (f"<p class='muted'>… and {len(groups) - limit} more finding(s) in section 5.</p>"
+            if len(groups) > limit else "")
+    return ("<h3>Findings, worst first</h3><ol class='findings' id='opening-findings'>" + "".join(items) + "</ol>"
+            + more)
+
+
+def _findings_method_rows(result, notes) -> list[list[str]]:
+    """Rows of the method table on findings, echoes, adjusted intervals and triples."""
+    fn = notes.get("findings") or {}
+    if not fn:
+        return []
+    ex = (result.method or {}).get("explanations", {})
+    rows = [["Findings and echoes", e(f"{fn['roles']} Multiple testing: {fn['multiplicity']}; "
+                                      f"{fn['explanation_tests']:,} explanation test(s) here, "
+                                      f"{fn['findings']} finding(s), {fn['echoes']} echo(es).")]]
+    lvl = fn.get("adjusted_level")
+    here = ""
+    if lvl and ex.get("selected") is not None:
+        here = (f"; here R = {ex['selected']:,}, m = {result.family_size:,}: 1 − {ex['selected']:,}·"
+                f"{result.config.alpha:g}/{result.family_size:,} = {lvl:.2%}")
+    rows.append(["Intervals of flagged slices", e(fn["adjusted_intervals"] + here)])
+    if fn.get("triples"):
+        rows.append(["Slices of three attributes", e(fn["triples"])])
+    return rows
+
+
+def _findings_html(result, groups, flagged, lvl: int, top: int) -> str:
+    """Section 5's lead: the findings worst first, each with its echoes folded under it, then every
+    flagged slice by flag rank (folded, one click away)."""
+    m = result.metric
+    adj = _adj_words(result)
+    finding_rank = {r["slice"]: int(r["finding_rank"]) for r, _ in groups}
+    out = [f"<h3>Findings, worst first ({len(groups)} of {len(flagged)} flagged slices)</h3>"
+           "<p>A <b>finding</b> is a flagged slice that no other flagged slice explains; an <b>echo</b> is a flagged "
+           "slice flagged only because it lies inside a finding or holds one (section 4 gives the tests). Each echo "
+           "is folded under the finding its explanations lead to. Findings are numbered by the conservative end of "
+           f"the interval of slice − rest adjusted for the selection ({e(adj)}); the flag rank numbers every flagged "
+           f"slice the same way, 1 to {len(flagged)} without gaps.</p>"]
+    rows = []
+    for r, ech in groups:
+        rows.append([str(int(r["finding_rank"])), str(int(r["flag_rank"])), f"<b>{e(r['slice'])}</b>",
+                     f"{int(r['n']):,}", _f(r["metric_value"]), f"[{_f(r['metric_low'])}, {_f(r['metric_high'])}]",
+                     _f(r["rest_value"]), _f(r["diff"]), f"[{_f(r['diff_low_adj'])}, {_f(r['diff_high_adj'])}]",
+                     _p(r["q_value"]), f"{len(ech):,}"])
+    out.append("<div id='findings-table'>" + _table(
+        ["finding", "flag rank", "slice", "n", m.title, f"{lvl}% interval", "rest", "slice − rest", adj,
+         "adjusted p", "echoes"], rows, num_cols=(0, 1, 3, 4, 6, 7, 9, 10)) + "</div>")
+    for r, ech in groups:
+        if not len(ech):
+            continue
+        erows = [[str(int(x["flag_rank"])), e(x["slice"]), e(x["explained_by"]), f"{int(x['n']):,}",
+                  _f(x["metric_value"]), f"{_f(x['diff'])} [{_f(x['diff_low_adj'])}, {_f(x['diff_high_adj'])}]",
+                  _p(x["q_value"])] for _, x in ech.iterrows()]
+        out.append(f"<details class='fold' id='echoes-{int(r['finding_rank'])}'><summary>Finding "
+                   f"{int(r['finding_rank'])}, {e(r['slice'])}: {len(ech)} echo(es) folded under it</summary>"
+                   + _table(["flag rank", "echo", "explained by", "n", m.title, f"slice − rest [{adj}]",
+                             "adjusted p"], erows, num_cols=(0, 3, 4, 6)) + "</details>")
+    shown = flagged.head(top)
+    frows = []
+    for _, r in shown.iterrows():
+        frows.append([str(int(r["flag_rank"])), e(r["slice"]), e(role_words(r, finding_rank)), f"{int(r['n']):,}",
+                      _f(r["metric_value"]), f"[{_f(r['metric_low'])}, {_f(r['metric_high'])}]", _f(r["rest_value"]),
+                      f"{_f(r['diff'])} [{_f(r['diff_low'])}, {_f(r['diff_high'])}]",
+                      f"[{_f(r['diff_low_adj'])}, {_f(r['diff_high_adj'])}]", _p(r["q_value"])])
+    out.append(f"<details class='fold' id='all-flagged'><summary>Every flagged slice by flag rank "
+               f"({len(shown)} of {len(flagged)} shown), with its role</summary>"
+               + _table(["flag rank", "slice", "role", "n", m.title, f"{lvl}% interval", "rest",
+                         f"slice − rest [{lvl}% interval]", adj, "adjusted p"], frows, num_cols=(0, 3, 4, 6, 9))
+               + "</details>")
+    if len(flagged) > top:
+        out.append(f"<p class='muted'>All {len(flagged)} flagged slices are listed in slices.csv.</p>")
+    return "".join(out)
 
 
 def _section(key: str, body: str) -> str:
@@ -463,7 +588,7 @@ def html_to_pdf(html_text: str, *, timeout: float = 120.0) -> tuple[bytes | None
         src = os.path.join(tmp, "report.html")
         out = os.path.join(tmp, "report.pdf")
         with open(src, "w", encoding="utf-8") as fh:
-            fh.write(html_text)
+            fh.write(html_text.replace("<details class='fold'", "<details class='fold' open"))
         args = [exe, "--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
                 "--disable-component-update", "--disable-sync", "--no-first-run", "--disable-quic",
                 f"--user-data-dir={os.path.join(tmp, 'profile')}", "--no-pdf-header-footer",
@@ -626,17 +751,17 @@ def _drivers_html(result, flagged) -> tuple[str, int]:
     for _, r in flagged.iterrows():
         d = class_drivers(result, r["slice"])
         if not len(d):
-            rows.append([str(int(r["rank"])), e(r["slice"]), "<span class='muted'>no class below the rest with "
+            rows.append([str(int(r["flag_rank"])), e(r["slice"]), "<span class='muted'>no class below the rest with "
                          "enough rows</span>", "", "", "", "", ""])
         for i, x in d.iterrows():
-            rows.append([str(int(r["rank"])) if i == 0 else "", e(r["slice"]) if i == 0 else "",
+            rows.append([str(int(r["flag_rank"])) if i == 0 else "", e(r["slice"]) if i == 0 else "",
                          f"<b>{e(x['class'])}</b>", e(x["rate"]), _f(x["slice_value"]), _f(x["rest_value"]),
                          _f(x["gap"]), f"{int(x['slice_rows']):,} / {int(x['rest_rows']):,}"])
     out = ("<h3>Which classes drive each flagged slice</h3><p>"
            + e(DRIVERS_RULE.format(min_rows=result.config.min_metric_support))
            + " These gaps are descriptive: they point at where to look and carry no test or correction of their "
              "own.</p>"
-           + _table(["rank", "slice", "class", "rate", "slice", "rest", "slice − rest", "rows behind the rate "
+           + _table(["flag rank", "slice", "class", "rate", "slice", "rest", "slice − rest", "rows behind the rate "
                      "(slice / rest)"], rows, num_cols=(0, 4, 5, 6, 7)))
     worst = flagged.iloc[0]["slice"]
     conf = charts.slice_confusion(result, worst)
