@@ -21,7 +21,11 @@ def test_upload_rank_download_matches_cli(page, app_url, demo_csv, tmp_path):
     expect(page.get_by_text("The whole model first")).to_be_visible(timeout=90_000)
     page.locator(UPLOADER).set_input_files(demo_csv)
     expect(page.get_by_text("Using the uploaded file")).to_be_visible(timeout=90_000)
-    ranked = page.locator('[data-testid="stDataFrame"]').nth(1)
+    # Findings lead; the full ranked list is the second tab.
+    expect(page.get_by_role("tab", name="Findings and their echoes")).to_have_attribute("aria-selected", "true")
+    expect(page.get_by_text(re.compile(r"^Finding 1 · ")).first).to_be_visible(timeout=90_000)
+    page.screenshot(path=os.path.join(_shots(tmp_path), "page-findings.png"))
+    ranked = _ranked_tab(page)
     top = ranked.locator('[data-testid="glide-cell-1-0"]').first
     expect(top).to_have_text("age_band=18-24 & employment_type=gig", timeout=90_000)
     expect(ranked.locator('[data-testid="glide-cell-0-0"]').first).to_have_text("1")
@@ -43,6 +47,14 @@ def test_upload_rank_download_matches_cli(page, app_url, demo_csv, tmp_path):
 
 
 UPLOADER = '[data-testid="stFileUploader"] input[type="file"]'
+
+
+def _ranked_tab(page):
+    """Open the tab with every tested slice; return its ranked table."""
+    page.get_by_role("tab", name="Every tested slice, ranked").click()
+    table = page.locator('[role="tabpanel"]:visible [data-testid="stDataFrame"]').first
+    expect(table).to_be_visible(timeout=60_000)
+    return table
 
 
 def _shots(tmp_path):
@@ -105,9 +117,11 @@ def test_main_path_picked_slice_equals_downloaded_row(page, app_url, tmp_path):
     _idle(page)
     _select(page, "Audited metric", "recall — recall (true-positive rate)")
     page.get_by_role("button", name="Run the audit").click()
+    _idle(page)
+    _ranked_tab(page)
     expect(page.get_by_text(re.compile(r"for recall \(true-positive rate\)\. Flags cover only"))).to_be_visible(
         timeout=60_000)
-    options = _open(page, "Slice (follows the filters above)")
+    options = _open(page, "Slice (follows the filters of the ranked list)")
     wanted = options.nth(2).inner_text().strip()
     options.nth(2).click()
     expect(page.locator('[data-testid="stMarkdownContainer"]').filter(has_text=wanted + " · n = ").first) \
@@ -148,7 +162,7 @@ def test_four_sessions_at_once(browser, app_url, tmp_path):
         expect(p.get_by_text(f"Using the uploaded file {path.name}")).to_be_visible(timeout=120_000)
         rows = p.locator('[data-testid="stMetric"]').filter(has_text="Rows").first
         expect(rows).to_contain_text(f"{n:,}", timeout=120_000)
-        expect(p.locator('[data-testid="stDataFrame"]').nth(1)).to_be_visible()
+        expect(p.get_by_role("tab", name="Findings and their echoes")).to_be_visible()
     for p in pages:
         p.context.close()
 
@@ -172,3 +186,57 @@ def test_hostile_report_runs_no_script(page, tmp_path):
     assert dialogs == []
     expect(page.get_by_text("<img src=x onerror=").first).to_be_attached()
     assert page.locator(".js-plotly-plot").count() >= 2  # charts drew offline
+
+
+def test_three_class_upload(page, app_url, tmp_path):
+    """The lender's routing model (three desks): probability column per class guessed, a per-class
+    metric chosen, the planted slice a finding driven by the recall of 'refer'."""
+    from demo.routing import generate
+
+    src = tmp_path / "routing.csv"
+    generate().to_csv(src, index=False)
+    page.set_viewport_size({"width": 1400, "height": 2000})
+    page.goto(app_url, wait_until="domcontentloaded")
+    expect(page.get_by_text("The whole model first")).to_be_visible(timeout=90_000)
+    page.locator(UPLOADER).set_input_files(str(src))
+    expect(page.get_by_text("Using the uploaded file")).to_be_visible(timeout=90_000)
+    expect(page.locator('[data-testid="stSelectbox"]').filter(has_text="True label column").first
+           .locator("input")).to_have_value("desk", timeout=60_000)
+    for k in ("approve", "decline", "refer"):
+        box = page.locator('[data-testid="stSelectbox"]').filter(has_text=f"Probability of class {k}").first
+        expect(box.locator("input")).to_have_value(f"p_{k}")
+    expect(page.get_by_text("Positive class", exact=True)).to_have_count(0)
+    _select(page, "Audited metric", "recall:refer — recall (true-positive rate) of class 'refer'")
+    page.get_by_role("button", name="Run the audit").click()
+    _idle(page)
+    expect(page.get_by_text("Confusion matrix, all rows").first).to_be_visible(timeout=60_000)
+    page.get_by_text("The whole model first").first.scroll_into_view_if_needed()
+    page.screenshot(path=os.path.join(_shots(tmp_path), "three-classes-overview.png"))
+    first = page.get_by_text(re.compile(r"^Finding 1 · channel=partner")).first
+    expect(first).to_be_visible(timeout=60_000)
+    first.click()
+    expect(page.get_by_text(re.compile(r"Driven by: recall of 'refer'")).first).to_be_visible(timeout=30_000)
+    first.scroll_into_view_if_needed()
+    page.screenshot(path=os.path.join(_shots(tmp_path), "three-classes-findings.png"))
+    _select(page, "Slice (follows the filters of the ranked list)", "channel=partner")
+    expect(page.get_by_text("Classes that drive this slice").first).to_be_visible(timeout=60_000)
+    page.get_by_text("Classes that drive this slice").first.scroll_into_view_if_needed()
+    page.screenshot(path=os.path.join(_shots(tmp_path), "three-classes-slice.png"))
+
+
+def test_finished_run_folder(page, app_url, tmp_path, demo_csv):
+    out = tmp_path / "run1"
+    r = subprocess.run([sys.executable, "-m", "audit", "audit", demo_csv, "--label", "delinquent", "--score",
+                        "p_delinquent", "--protected", "sex,age_band", "--favorable", "0", "--out", str(out),
+                        "--no-report", "--quiet"], capture_output=True, text=True, env={**os.environ, "PYTHONPATH": ROOT})
+    assert r.returncode == 0, r.stderr
+    page.set_viewport_size({"width": 1400, "height": 1800})
+    page.goto(app_url, wait_until="domcontentloaded")
+    expect(page.get_by_text("The whole model first")).to_be_visible(timeout=90_000)
+    page.get_by_text("Larger tables, and browsing a run made on the command line").click()
+    box = page.get_by_label("Output folder of a finished run", exact=False)
+    box.fill(str(out))
+    box.press("Enter")
+    expect(page.get_by_text("A finished run, read from its folder")).to_be_visible(timeout=60_000)
+    expect(page.get_by_text(re.compile(r"^Finding 1 · ")).first).to_be_visible(timeout=30_000)
+    page.screenshot(path=os.path.join(_shots(tmp_path), "finished-run.png"), full_page=True)

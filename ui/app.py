@@ -193,7 +193,7 @@ def show_finished_run(run: "folder_view.FinishedRun") -> None:
     stc = res.status_counts()
     k1, k2, k3, k4, k5 = st.columns(5)
     k1.metric("Rows", f"{res.n_rows:,}")
-    k2.metric(f"Overall {res.metric.name}", fmt(res.overall.get(res.metric.name)))
+    k2.metric(f"Overall {res.metric.name}", fmt(res.overall.get(res.metric.name, res.slice(ALL)["metric_value"])))
     k3.metric("Slices tested", f"{stc.get('tested', 0):,}", help=f"family size m = {res.family_size}")
     k4.metric("Flagged", f"{stc.get('flagged', 0):,}")
     k5.metric("Findings", f"{len(res.findings()):,}")
@@ -448,7 +448,7 @@ o = result.overall
 stc = result.status_counts()
 k1, k2, k3, k4, k5 = st.columns(5)
 k1.metric("Rows", f"{result.n_rows:,}")
-k2.metric(f"Overall {m.name}", fmt(o.get(m.name)))
+k2.metric(f"Overall {m.name}", fmt(o.get(m.name, result.slice(ALL)["metric_value"])))
 k3.metric("Slices tested", f"{stc.get('tested', 0):,}", help=f"family size m = {result.family_size}")
 k4.metric("Below support", f"{stc.get('below_support', 0):,}")
 k5.metric("Flagged", f"{stc.get('flagged', 0):,}", help="Slices that do worse than the rest of the rows, with "
@@ -528,7 +528,8 @@ choices = [c for c in choices if c != ALL]
 if not choices:
     st.caption("No slice matches the filters of the ranked list.")
 else:
-    chosen = choose(st, "Slice (follows the filters of the ranked list)", choices, choices[0], "slice_pick", run_id)
+    top_finding = next(iter(result.findings()["slice"]), choices[0])
+    chosen = choose(st, "Slice (follows the filters of the ranked list)", choices, top_finding, "slice_pick", run_id)
     s = result.slice(chosen)
     if multi:
         classes_view.slice_panel(result, chosen, st)

@@ -88,23 +88,25 @@ def show(result, st, *, key: str = "") -> None:
         k = int(r["echoes"])
         label = (f"Finding {int(r['finding_rank'])} · {md(r['slice'])} — "
                  + (f"{k} echo{'es' if k != 1 else ''} folded under it" if k else "no echoes"))
-        with st.expander(label, expanded=False):
-            st.markdown(f"n = **{int(r['n']):,}** rows · {md(name)} {_n(r['metric_value'])} against "
-                        f"{_n(r['rest_value'])} in the rest · difference {_n(r['diff'])}, selection-adjusted "
-                        f"interval [{_n(r['diff_low_adj'])}, {_n(r['diff_high_adj'])}] · adjusted p "
-                        f"{fmt_p(r['q_value'])}")
-            why = drivers_text(result, r["slice"])
-            if why:
-                st.markdown(why)
-            if k:
-                e = result.echoes(r["slice"])
-                e = e[[c for c in ECHO_COLUMNS if c in e.columns]].rename(columns={"metric_value": name})
-                e["explained_by"] = e["explained_by"].astype(object).where(e["explained_by"].notna(), "").map(str)
-                st.dataframe(e, hide_index=True, width="stretch", height=min(300, 35 * (len(e) + 1) + 3),
-                             column_config={"flag_rank": num("flag rank", format="%d"), name: num(format="%.4f"),
-                                            "rest_value": num("rest", format="%.4f"),
-                                            "diff": num("slice − rest", format="%.4f"),
-                                            "q_value": num("adjusted p", format="%.2e"),
-                                            "explained_by": column_config.TextColumn("explained by")})
+        box = st.expander(label, expanded=False)
+        box.markdown(f"n = **{int(r['n']):,}** rows · {md(name)} {_n(r['metric_value'])} against "
+                     f"{_n(r['rest_value'])} in the rest · difference {_n(r['diff'])}, selection-adjusted "
+                     f"interval [{_n(r['diff_low_adj'])}, {_n(r['diff_high_adj'])}] · adjusted p "
+                     f"{fmt_p(r['q_value'])}")
+        why = drivers_text(result, r["slice"])
+        if why:
+            box.markdown(why)
+        if k:
+            e = result.echoes(r["slice"])
+            e = e[[c for c in ECHO_COLUMNS if c in e.columns]].rename(columns={"metric_value": name})
+            e["explained_by"] = e["explained_by"].astype(object).where(e["explained_by"].notna(), "").map(str)
+            box.caption("Echoes: flagged slices that are not significantly worse than the finding's other rows, or "
+                        "that are flagged only because the finding lies inside them.")
+            box.dataframe(e, hide_index=True, width="stretch", height=min(300, 35 * (len(e) + 1) + 3),
+                          column_config={"flag_rank": num("flag rank", format="%d"), name: num(format="%.4f"),
+                                         "rest_value": num("rest", format="%.4f"),
+                                         "diff": num("slice − rest", format="%.4f"),
+                                         "q_value": num("adjusted p", format="%.2e"),
+                                         "explained_by": column_config.TextColumn("explained by")})
     if len(f) > SHOWN:
         st.caption(f"{len(f) - SHOWN} more findings are in the table above and in the full ranked list.")
