@@ -30,7 +30,9 @@ def limitations(result) -> list[tuple[str, str]]:
          "Absence of a flag is not evidence of equal performance."),
         ("Overlapping slices",
          "Single-attribute slices and pairs share rows, so one underlying problem can raise many flags (a pair and "
-         "both of its parts). Read flags as pointers to a region of the data, not as separate findings."),
+         "both of its parts). The audit folds such echoes under the finding that explains them, by tests at the "
+         "chosen level: an echo is not shown to be free of a weakness of its own, only not shown to have one. "
+         "Read flags as pointers to a region of the data."),
         ("What the correction covers",
          f"{corr} accounts for the {result.family_size} tests run here on one metric. It does not cover other "
          "metrics examined, other audits of the same model, "
