@@ -67,7 +67,10 @@ def evaluate_gate(result, *, on_flag: str | None = None, gap: float | None = Non
     if on_flag in ("slices", "both"):
         checks.append("slices")
         if len(flagged):
-            reasons.append(f"{len(flagged)} slice(s) flagged; worst: {flagged.iloc[0]['slice']}")
+            fnd = result.findings() if "finding" in result.slices.columns else flagged.iloc[:0]
+            names = "; ".join(fnd["slice"].head(3)) + (" …" if len(fnd) > 3 else "")
+            reasons.append(f"{len(flagged)} slice(s) flagged; worst: {flagged.iloc[0]['slice']}"
+                           + (f" ({len(fnd)} finding(s): {names})" if len(fnd) else ""))
     if on_flag in ("fairness", "both") and result.fairness is not None:
         checks.append("fairness")
         found = fairness_findings(result)
