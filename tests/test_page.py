@@ -609,3 +609,8 @@ def test_attribute_screen_is_the_engines_decision():
     res = audit.run(df, label="churned", score="p_churn", attributes=cands)
     assert keep == [a.name for a in res.attributes]
     assert skip == res.skipped
+    # The same through the page's fast reader, where a column of many ids stays plain text.
+    t = intake._read(df.to_csv(index=False).encode(), "t.csv", "x")
+    assert t.reader == "pyarrow" and t.columns["customer_id"].distinct is None
+    keep, skip = intake.screen(t, cands, label="churned")
+    assert keep == [a.name for a in res.attributes] and skip == res.skipped

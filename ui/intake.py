@@ -329,7 +329,7 @@ def screen(table: Table, candidates: list[str], *, label: str | None = None, bin
     profiles = table.profiles
     for c in rest:
         if c not in profiles:
-            profiles[c] = profile_column(table.df[c], c)
+            profiles[c] = _profile_for_screen(table, c, profile_column)
     chosen = [profiles[c] for c in rest]
     try:
         encs = [fit_encoding(chosen, n_bins=bins, max_levels=max_levels)]
@@ -348,6 +348,35 @@ def screen(table: Table, candidates: list[str], *, label: str | None = None, bin
         elif c in reasons:
             skip[c] = reasons[c]
     return keep, skip
+
+
+class _Distinct:
+    """Stands for the per-value row counts of a text column that has more than ``DICT_LIMIT``
+    values: ``fit_encoding`` reads only how many values have rows, and such a column is skipped
+    whatever its values are (too many levels, or an identifier)."""
+
+    def __init__(self, n: int):
+        self.n = n
+
+    def values(self):
+        import itertools
+
+        return itertools.repeat(1, self.n)
+
+
+def _profile_for_screen(table: Table, c: str, profile_column):
+    """The engine's profile of column ``c``; for a plain text column the fast reader left with
+    more than ``DICT_LIMIT`` values (an identifier, typically), the same profile built from an
+    exact distinct count instead of a dict of every value (1.4 s for a million ids, 0.1 s)."""
+    from audit.core.encoding import TEXT_CAP, ColumnProfile
+
+    info = table.columns.get(c)
+    s = table.df[c]
+    if info is not None and info.distinct is None and not info.numeric and pd.api.types.is_string_dtype(s) \
+            and not isinstance(s.dtype, pd.CategoricalDtype):
+        nu = int(s.nunique(dropna=True))
+        return ColumnProfile(c, "text", len(s), info.n_missing, counts=None if nu > TEXT_CAP else _Distinct(nu))
+    return profile_column(s, c)
 
 
 def label_values(table: Table, label: str) -> list[str]:
