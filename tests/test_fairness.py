@@ -23,7 +23,7 @@ def test_four_fifths_worked_example():
     # Selection rates 60% (reference), 45%, 48%, 51% -> impact ratios 0.75, 0.80, 0.85; only 0.75 is below
     # four-fifths (29 CFR 1607.4(D); the Uniform Guidelines' own illustration uses rates of this kind).
     df = groups_with_rates([0.60, 0.45, 0.48, 0.51])
-    res = audit.run(df, label="y", pred="yhat", protected=["g"], min_support=10)
+    res = audit.run(df, label="y", pred="yhat", protected=["g"], favorable="1", min_support=10)
     g = res.fairness.groups.set_index("group")
     assert g.loc["g0", "is_reference"]
     assert g.loc[["g1", "g2", "g3"], "impact_ratio"].round(10).tolist() == [0.75, 0.8, 0.85]
@@ -36,7 +36,7 @@ def test_exactly_four_fifths_is_not_flagged():
     assert four_fifths_below(5, 10, 15, 20) is True
     df = pd.DataFrame({"g": ["a"] * 10 + ["b"] * 20, "yhat": [1] * 6 + [0] * 4 + [1] * 15 + [0] * 5,
                        "y": ([0, 1] * 15)})
-    res = audit.run(df, label="y", pred="yhat", protected=["g"], min_support=5, min_group_share=0.0)
+    res = audit.run(df, label="y", pred="yhat", protected=["g"], favorable="1", min_support=5, min_group_share=0.0)
     g = res.fairness.groups.set_index("group")
     assert g.loc["b", "is_reference"] and g.loc["a", "impact_ratio"] == pytest.approx(0.8)
     assert not g.loc["a", "below_four_fifths"]
@@ -63,7 +63,7 @@ def test_scoring_rate_example():
     assert r["B"] / r["A"] == pytest.approx(4 / 9)
     # Same through the engine with probabilities scaled into [0, 1].
     df = pd.DataFrame({"p": scores / 10, "g": groups, "y": [1, 0] * 5})
-    res = audit.run(df, label="y", score="p", protected=["g"], min_support=2, min_group_share=0.0,
+    res = audit.run(df, label="y", score="p", protected=["g"], favorable="1", min_support=2, min_group_share=0.0,
                     reference={"g": "A"})
     g = res.fairness.groups.set_index("group")
     assert g.loc["A", "scoring_rate"] == pytest.approx(0.75) and g.loc["B", "scoring_rate"] == pytest.approx(1 / 3)
@@ -77,7 +77,7 @@ def test_small_groups_and_missing_values_are_counted_but_left_out():
     g[:20] = "tiny"          # 1% of rows, under the 2% default
     g[20:70] = None          # missing protected value
     df = pd.DataFrame({"g": g, "y": rng.integers(0, 2, n), "yhat": rng.integers(0, 2, n)})
-    res = audit.run(df, label="y", pred="yhat", protected=["g"])
+    res = audit.run(df, label="y", pred="yhat", protected=["g"], favorable="1")
     fr = res.fairness
     t = fr.groups.set_index("group")
     assert fr.missing == {"g": 50}
@@ -114,8 +114,10 @@ def test_fairness_input_errors(credit):
     with pytest.raises(AuditInputError, match=r"favourable outcome 'maybe' is not a class"):
         audit.run(credit, label="Status", score="p_bad", positive="bad", protected=["Home"], favorable="maybe")
     with pytest.raises(AuditInputError, match=r"reference group 'castle' does not occur"):
-        audit.run(credit, label="Status", score="p_bad", positive="bad", protected=["Home"],
+        audit.run(credit, label="Status", score="p_bad", positive="bad", protected=["Home"], favorable="good",
                   reference={"Home": "castle"})
+    with pytest.raises(AuditInputError, match=r"with protected attributes, say which predicted class is favourable"):
+        audit.run(credit, label="Status", score="p_bad", positive="bad", protected=["Home"])
 
 
 def test_family_is_corrected_and_flags_follow(demo_df):

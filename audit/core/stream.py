@@ -511,6 +511,10 @@ def _check_fairness_settings(cfg, spec: OutcomeSpec, enc: Encoding) -> None:
     if spec.n_classes > 2 and not favs:
         raise AuditInputError("with three or more classes, say which predicted class (or classes) is favourable to "
                               "the person: favorable=... (--favorable CLASS[,CLASS])", setting="favorable")
+    if not favs:  # no silent default: being predicted positive is not always good for the person
+        raise AuditInputError("with protected attributes, say which predicted class is favourable to the person: "
+                              f"favorable=... (--favorable VALUE), one of {', '.join(spec.classes)}",
+                              setting="favorable")
     by_name = {a.name: a for a in enc.attributes}
     labels = {p: by_name[p].levels for p in cfg.protected}
     prot = list(cfg.protected)
