@@ -79,7 +79,8 @@ def child_dask(path: str, chunk: int) -> dict:
     from audit.core.distributed import start_local_cluster
 
     t0 = time.perf_counter()
-    cluster = start_local_cluster(2)
+    scratch = tempfile.mkdtemp(prefix="fissure-dask-")
+    cluster = start_local_cluster(2, local_directory=scratch)
     client = Client(cluster)
     client.run(lambda: __import__("audit.core.stream"))  # workers import the reader before the clock starts
     started = time.perf_counter() - t0
@@ -89,6 +90,7 @@ def child_dask(path: str, chunk: int) -> dict:
     peaks = client.run(lambda: resource.getrusage(resource.RUSAGE_SELF).ru_maxrss)
     client.close()
     cluster.close()
+    shutil.rmtree(scratch, ignore_errors=True)
     return {"seconds": sec, "cluster_start": started, "worker_peak_mb": [v / 1024 for v in peaks.values()],
             "check": _fissure_check(res)}
 

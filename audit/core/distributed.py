@@ -351,7 +351,10 @@ class DaskRun:
         address = None
         try:
             if self.scheduler is None:
-                self.cluster = start_local_cluster(self.workers)
+                import tempfile
+
+                self._tmp = tempfile.mkdtemp(prefix="fissure-dask-")  # the workers' scratch space, removed after
+                self.cluster = start_local_cluster(self.workers, local_directory=self._tmp)
                 self.client = Client(self.cluster)
                 self.own_client = True
             elif isinstance(self.scheduler, str):
@@ -386,6 +389,11 @@ class DaskRun:
             except Exception:  # pragma: no cover
                 pass
         self.client = self.cluster = None
+        if self._tmp is not None:
+            import shutil
+
+            shutil.rmtree(self._tmp, ignore_errors=True)
+            self._tmp = None
 
     def _wait(self, future):
         """A future's result; what the cluster could not do becomes one line."""
