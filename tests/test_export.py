@@ -22,3 +22,25 @@ def test_write_files_is_all_or_nothing(tmp_path):
     with pytest.raises(TypeError):
         write_files(str(out), {"c.csv": b"x", "d.csv": object()})  # second file cannot be written
     assert sorted(os.listdir(out)) == ["a.csv", "b.json"]  # nothing half-written, no temp files left
+
+
+def test_a_run_interrupted_while_writing_leaves_no_folder(tmp_path, monkeypatch):
+    from audit.faces import export
+
+    real = export.write_files
+    calls = []
+
+    def failing(out_dir, files):
+        calls.append(out_dir)
+        real(out_dir, dict(list(files.items())[:1]))
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(export, "write_files", failing)
+    out = tmp_path / "new-run"
+    with pytest.raises(KeyboardInterrupt):
+        export.write_run(str(out), {"slices.csv": b"a\n", "summary.json": b"{}\n"})
+    assert not out.exists() and os.listdir(tmp_path) == []  # no folder, no hidden part left
+    monkeypatch.setattr(export, "write_files", real)
+    written = export.write_run(str(out), {"slices.csv": b"a\n", "summary.json": b"{}\n"})
+    assert sorted(os.path.basename(w) for w in written) == ["slices.csv", "summary.json"]
+    assert sorted(os.listdir(out)) == [".fissure-run", "slices.csv", "summary.json"]

@@ -13,6 +13,7 @@ import datetime as _dt
 import io
 import json
 import os
+import shutil
 import tempfile
 from typing import Any
 
@@ -261,14 +262,74 @@ def write_run(out_dir: str, files: dict[str, bytes], *, created: str | None = No
     check_output_folder(out_dir)
     previous = _previous_files(out_dir)
     marker = {"tool": "fissure", "created": created or now_utc(), "files": sorted(files)}
-    written = write_files(out_dir, files)
-    write_files(out_dir, {MARKER: (json.dumps(marker, indent=1) + "\n").encode("utf-8")})
-    for name in previous:
-        if name not in files:
-            path = os.path.join(out_dir, name)
-            if os.path.isfile(path):
-                os.unlink(path)
-    return written
+    everything = {**files, MARKER: (json.dumps(marker, indent=1) + "\n").encode("utf-8")}
+    if not os.path.isdir(out_dir) or not os.listdir(out_dir):
+        # A new (or empty) folder appears whole: written as a hidden sibling, then renamed.
+        parent = os.path.dirname(os.path.abspath(out_dir))
+        os.makedirs(parent, exist_ok=True)
+        tmp = tempfile.mkdtemp(prefix=f".{os.path.basename(os.path.abspath(out_dir))}.", suffix=".part", dir=parent)
+        try:
+            write_files(tmp, everything)
+            os.chmod(tmp, 0o777 & ~_umask())
+            with _no_interrupt():
+                os.rename(tmp, out_dir)  # replaces an empty folder atomically on POSIX
+        except BaseException:
+            shutil.rmtree(tmp, ignore_errors=True)
+            raise
+        return [os.path.join(out_dir, name) for name in files]
+    staged = _stage(out_dir, everything)
+    with _no_interrupt():  # the previous run's files are replaced as one step
+        for tmp, final in staged:
+            os.replace(tmp, final)
+        for name in previous:
+            if name not in files:
+                path = os.path.join(out_dir, name)
+                if os.path.isfile(path):
+                    os.unlink(path)
+    return [final for _, final in staged if not final.endswith(MARKER)]
+
+
+def _stage(out_dir: str, files: dict[str, bytes]) -> list[tuple[str, str]]:
+    """Write every file under a temporary name in ``out_dir``; remove them all if anything fails."""
+    temps: list[tuple[str, str]] = []
+    try:
+        for name, data in files.items():
+            fd, tmp = tempfile.mkstemp(prefix=f".{name}.", suffix=".part", dir=out_dir)
+            temps.append((tmp, os.path.join(out_dir, name)))
+            with os.fdopen(fd, "wb") as fh:
+                fh.write(data)
+            os.chmod(tmp, 0o666 & ~_umask())
+    except BaseException:
+        for tmp, _ in temps:
+            if os.path.exists(tmp):
+                os.unlink(tmp)
+        raise
+    return temps
+
+
+class _no_interrupt:
+    """Hold Ctrl-C (SIGINT) while files are renamed into place, then deliver it: a run is
+    either all written or not written. Only the main thread can hold signals; elsewhere
+    (the page's threads) it does nothing."""
+
+    def __enter__(self):
+        import signal
+        import threading
+
+        self.caught = None
+        self.old = None
+        if threading.current_thread() is threading.main_thread():
+            self.old = signal.signal(signal.SIGINT, lambda s, f: setattr(self, "caught", (s, f)))
+        return self
+
+    def __exit__(self, *exc):
+        import signal
+
+        if self.old is not None:
+            signal.signal(signal.SIGINT, self.old)
+            if self.caught is not None:
+                raise KeyboardInterrupt
+        return False
 
 
 def build_files(result, *, report: bool = True, pdf: bool = False, command: str | None = None,
