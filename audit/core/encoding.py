@@ -64,6 +64,10 @@ class ColumnProfile:
     hi: float = -np.inf
     sample: list[np.ndarray] = field(default_factory=list)
     sample_size: int = 0
+    #: Distinct text values seen when ``counts`` was not kept (too many to slice); exact for one
+    #: chunk, a lower bound once chunks are added.
+    distinct_seen: int = 0
+    distinct_exact: bool = True
 
     def __add__(self, other: "ColumnProfile") -> "ColumnProfile":
         if self.kind != other.kind:
@@ -74,11 +78,16 @@ class ColumnProfile:
         if self.kind == "text":
             if self.counts is None or other.counts is None:
                 out.counts = None
+                seen = [x.distinct_seen if x.counts is None else len(x.counts) for x in (self, other) if x.n]
+                out.distinct_seen = max(seen) if seen else 0
+                out.distinct_exact = len(seen) <= 1 and all(x.distinct_exact for x in (self, other) if x.n)
             else:
                 merged = dict(self.counts)
                 for k, v in other.counts.items():
                     merged[k] = merged.get(k, 0) + v
                 out.counts = merged if len(merged) <= TEXT_CAP else None
+                if out.counts is None:
+                    out.distinct_seen, out.distinct_exact = len(merged), True
             return out
         out.distinct = None if self.distinct is None or other.distinct is None else self.distinct | other.distinct
         if out.distinct is not None and len(out.distinct) > MAX_INTEGER_LEVELS + 1:
@@ -98,7 +107,9 @@ class ColumnProfile:
     @property
     def n_distinct(self) -> int | None:
         if self.kind == "text":
-            return None if self.counts is None else sum(1 for c in self.counts.values() if c > 0)
+            if self.counts is None:
+                return self.distinct_seen if self.distinct_exact and self.distinct_seen else None
+            return sum(1 for c in self.counts.values() if c > 0)
         return None if self.distinct is None else len(self.distinct)
 
 
@@ -134,9 +145,16 @@ def is_numeric(s: pd.Series) -> bool:
 
 
 def profile_column(s: pd.Series, name: str, *, as_text: bool = False, cache: dict | None = None,
-                   compiled: bool = False) -> ColumnProfile:
+                   compiled: bool = False, cap: int | None = None) -> ColumnProfile:
     """Profile one column of one chunk. ``cache`` (a dict) receives work that
-    :meth:`Encoding.apply` can reuse on the same chunk."""
+    :meth:`Encoding.apply` can reuse on the same chunk. A text column with more than ``cap``
+    distinct values (too many to slice whatever they are) keeps only their number."""
+    if cap is not None and not (is_numeric(s) and not as_text) and not isinstance(s.dtype, pd.CategoricalDtype):
+        raw, uniques = pd.factorize(s, use_na_sentinel=True)
+        if len(uniques) > cap:
+            p = ColumnProfile(name, "text", len(raw), int((raw < 0).sum()), counts=None)
+            p.distinct_seen = len(uniques)
+            return p
     if is_numeric(s) and not as_text:
         v = s.to_numpy(dtype=float)
         miss = np.isnan(v)
@@ -415,7 +433,7 @@ def fit_encoding(profiles: Sequence[ColumnProfile], *, n_bins: int = 5, bin_edge
             attrs.append(_binned(p, None, n_bins))
             continue
         if nu is None:
-            skipped[col] = f"looks like an identifier (more than {TEXT_CAP} distinct values)"
+            skipped[col] = f"looks like an identifier (more than {max(p.distinct_seen, 1):,} distinct values)"
             continue
         if nu > ID_MIN_DISTINCT and nu >= ID_SHARE * n_nonmiss and col not in categorical:
             skipped[col] = f"looks like an identifier ({nu} distinct values in {n_nonmiss} rows)"

@@ -21,7 +21,7 @@ import pandas as pd
 
 from ..errors import AuditInputError, shown
 from .auc import ExactAuc, hist_bins, score_histogram, slice_auc
-from .encoding import Encoding, choose_columns, fit_encoding, profile_column
+from .encoding import ID_MIN_DISTINCT, Encoding, choose_columns, fit_encoding, profile_column
 from .outcomes import (OutcomeSpec, check_columns, fit_outcomes, labelled_rows, need_columns, profile_outcomes)
 from .tally import (LOSS_SUMS, Tally, class_losses, plan_families, plan_triples, row_losses, tally, tally_numpy,
                     tally_triples, use_compiled)
@@ -164,7 +164,9 @@ def profile_source(source: Source, cfg, *, progress: Progress | None = None, kee
         acache: dict = {}
         a = len(cols)
         compiled = use_compiled(len(df), 1 + a + (a * (a - 1) // 2 if cfg.max_order >= 2 else 0))
-        pc = [profile_column(df[c], c, as_text=c in cfg.categorical, cache=acache, compiled=compiled) for c in cols]
+        cap = max(1000, cfg.max_levels + 1, ID_MIN_DISTINCT + 1)  # past it a text column is skipped anyway
+        pc = [profile_column(df[c], c, as_text=c in cfg.categorical, cache=acache, compiled=compiled, cap=cap)
+              for c in cols]
         prof_out = po if prof_out is None else prof_out + po
         profiles = pc if profiles is None else [a + b for a, b in zip(profiles, pc)]
         if "score" in ocache and cfg.protected and source.chunked:
