@@ -76,8 +76,9 @@ def _canonical_codes(s: pd.Series) -> tuple[np.ndarray, np.ndarray]:
     return codes, text
 
 
-def _first_rows(codes: np.ndarray, text: np.ndarray, offset: int) -> dict[str, int]:
-    """Each value present in ``codes`` with the first (global) row it occurs in."""
+def _first_rows(codes: np.ndarray, text: np.ndarray, offset: int, *, rows: bool = True) -> dict[str, int]:
+    """Each value present in ``codes`` with the first (global) row it occurs in (``rows=False``:
+    the values only, each with row 0 — a label's classes need no row)."""
     size = len(text) - 1
     if codes.dtype == np.uint8:
         present = np.flatnonzero(np.bincount(codes, minlength=size)[:size])
@@ -86,7 +87,7 @@ def _first_rows(codes: np.ndarray, text: np.ndarray, offset: int) -> dict[str, i
     out: dict[str, int] = {}
     for c in present:
         t = str(text[c])
-        row = offset + int(np.argmax(codes == c))
+        row = offset + int(np.argmax(codes == c)) if rows else 0
         if t not in out or row < out[t]:
             out[t] = row
     return out
@@ -178,7 +179,7 @@ def profile_outcomes(df: pd.DataFrame, cfg, *, offset: int = 0, rows: np.ndarray
     where = (lambda i: offset + int(rows[i])) if rows is not None else (lambda i: offset + i)
     ycodes, ytext = _canonical_codes(df[cfg.label])
     prof = OutcomeProfile(n_rows=len(df))
-    prof.label_first = {k: where(v) for k, v in _first_rows(ycodes, ytext, 0).items()}
+    prof.label_first = _first_rows(ycodes, ytext, 0, rows=False)
     cache: dict[str, Any] = {"y": (ycodes, ytext)}
     if isinstance(cfg.score, dict):
         cols = [_check_score(df[c], c, where) for c in cfg.score.values()]
@@ -282,7 +283,8 @@ class OutcomeSpec:
                                          for c in self.probs.values()])
             # columns in class order
             order = [list(self.probs).index(c) for c in self.classes]
-            probs = probs[:, order]
+            if order != list(range(len(order))):
+                probs = probs[:, order]
         if self.pred is not None:
             pcodes, ptext = cache.get("pred") or _canonical_codes(df[self.pred])
             yhat = _is_text(pcodes, ptext, self.classes)

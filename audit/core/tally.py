@@ -77,7 +77,7 @@ def class_losses(y: np.ndarray, probs: np.ndarray) -> tuple[np.ndarray, np.ndarr
     rows = np.arange(len(y))
     p_true = probs[rows, y.astype(np.intp)]
     ll = -np.log(np.clip(p_true, EPS, 1.0 - EPS))
-    br = (probs * probs).sum(axis=1) - 2.0 * p_true + 1.0
+    br = np.einsum("ij,ij->i", probs, probs) - 2.0 * p_true + 1.0
     return ll, br
 
 
