@@ -131,8 +131,8 @@ def _raw_levels(s: pd.Series, *, compiled: bool = False):
         # Viewing the signed codes as unsigned puts -1 (missing) in the histogram's last bin.
         from .tally import small_histogram
 
-        # numpy, not the compiled histogram: a parallel kernel per column waits on busy cores (measured)
-        hist = small_histogram(raw.view(np.dtype(f"u{raw.dtype.itemsize}")), 1 << (8 * raw.dtype.itemsize))
+        hist = small_histogram(raw.view(np.dtype(f"u{raw.dtype.itemsize}")), 1 << (8 * raw.dtype.itemsize),
+                               compiled=compiled)
         counts, n_missing = hist[:len(text)], int(hist[-1])
     else:
         n_missing = int((raw < 0).sum())
