@@ -50,8 +50,15 @@ def _names_at(fam: tuple[int, ...], attrs: Sequence[AttributeCoding], pos: np.nd
         codes.append(rest % c)
         rest = rest // c
     codes = codes[::-1]
-    vals = [[attrs[a].levels[int(x)] for x in cs] for a, cs in zip(fam, codes)]
-    names = [" & ".join(f"{attrs[a].name}={v[r]}" for a, v in zip(fam, vals)) for r in range(len(pos))]
+    # Object arrays indexed by code: the concatenation runs in numpy's loop, not a Python generator.
+    levels = [np.array(attrs[a].levels, dtype=object) for a in fam]
+    vals = [lv[cs].tolist() for lv, cs in zip(levels, codes)]
+    parts = [np.array([f"{' & ' if j else ''}{attrs[a].name}={x}" for x in attrs[a].levels], dtype=object)[cs]
+             for j, (a, cs) in enumerate(zip(fam, codes))]
+    joined = parts[0]
+    for part in parts[1:]:
+        joined = joined + part
+    names = joined.tolist()
     out = [names]
     for j in range(3):
         out += [[attrs[fam[j]].name] * len(pos), vals[j]] if j < len(fam) else [[""] * len(pos), [""] * len(pos)]
@@ -126,6 +133,15 @@ def _binary_columns(counts, rest, sums, rsums, auc, cfg, n_rows) -> dict[str, An
     cols["roc_auc"] = auc
 
     return cols
+
+
+def _counted(values: np.ndarray, suffix: str) -> np.ndarray:
+    """``"<count><suffix>"`` for many slices at once (a text per distinct count, then indexed)."""
+    v = np.asarray(values, dtype=np.int64)
+    if not len(v):
+        return np.empty(0, dtype=object)
+    u, inv = np.unique(v, return_inverse=True)
+    return np.array([f"{int(x)}{suffix}" for x in u.tolist()], dtype=object)[inv]
 
 
 def restated_outcomes(tl: Tally, fitted: Fitted) -> dict[int, str]:
@@ -247,10 +263,10 @@ def summarize(tl: Tally, fitted: Fitted, cfg: AuditConfig, *, source: SourceInfo
     reason[rest_small] = f"the rest has fewer than {ms} rows or {mms} {sup_title}"
     status = np.where(rest_small, "no_rest", status)
     idx_m = np.flatnonzero(few_metric)
-    reason[idx_m] = [f"{int(v)} {sup_title} < {mms}" for v in support[idx_m]]
+    reason[idx_m] = _counted(support[idx_m], f" {sup_title} < {mms}")
     status = np.where(few_metric, "below_support", status)
     idx_r = np.flatnonzero(few_rows)
-    reason[idx_r] = [f"{int(v)} rows < {ms}" for v in n_slice[idx_r]]
+    reason[idx_r] = _counted(n_slice[idx_r], f" rows < {ms}")
     status = np.where(few_rows, "below_support", status)
     status = np.where(order == 0, "whole_table", status)
     reason[order == 0] = "the reference population"
