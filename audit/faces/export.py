@@ -204,22 +204,10 @@ def _umask() -> int:
 def write_files(out_dir: str, files: dict[str, bytes]) -> list[str]:
     """Write every file under a temporary name in ``out_dir``, then rename them into place."""
     os.makedirs(out_dir, exist_ok=True)
-    temps: list[tuple[str, str]] = []
-    try:
-        for name, data in files.items():
-            fd, tmp = tempfile.mkstemp(prefix=f".{name}.", suffix=".part", dir=out_dir)
-            temps.append((tmp, os.path.join(out_dir, name)))
-            with os.fdopen(fd, "wb") as fh:
-                fh.write(data)
-            os.chmod(tmp, 0o666 & ~_umask())
-    except BaseException:
-        for tmp, _ in temps:
-            if os.path.exists(tmp):
-                os.unlink(tmp)
-        raise
-    for tmp, final in temps:
+    staged = _stage(out_dir, files)
+    for tmp, final in staged:
         os.replace(tmp, final)
-    return [final for _, final in temps]
+    return [final for _, final in staged]
 
 
 #: The file that marks a folder as holding one Fissure run, and lists that run's files.
