@@ -240,3 +240,20 @@ def test_slice_comparison_and_chance_band_for_three_classes():
             skm.recall_score(df["outcome"][mask], pred[mask], labels=["refer"], average=None)[0])
     rest = res.rest_counts("branch=north")
     assert rest["n"] == (~m).sum() and rest["true_refer_pred_refer"] == int(((df["outcome"] == "refer") & (pred == "refer") & ~m).sum())
+
+
+def test_compiled_class_rows_equal_numpy_and_break_ties_like_argmax():
+    from audit.core.tally import class_rows
+
+    rng = np.random.default_rng(5)
+    n, k = 50_000, 4
+    P = rng.dirichlet([1, 1, 1, 1], n).T.copy()
+    P[:, :100] = 0.25  # four-way ties: the first class wins, as numpy's argmax
+    P[:2, 100:200], P[2:, 100:200] = 0.4, 0.1
+    y = rng.integers(0, k, n).astype(np.int8)
+    a = class_rows(y, P, compiled=True)
+    b = class_rows(y, P, compiled=False)
+    assert np.array_equal(a[0], b[0]) and np.array_equal(a[0], np.argmax(P, axis=0))
+    assert (a[0][:200] == 0).all()
+    np.testing.assert_allclose(a[1], b[1], rtol=1e-14)
+    np.testing.assert_allclose(a[2], b[2], rtol=1e-12, atol=1e-15)

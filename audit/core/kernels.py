@@ -359,3 +359,28 @@ def _group_triple_counts(gt, cell, ga, gb, gc, wb, wc, off, total, nth, block): 
                 for r in range(blo, bhi):
                     o[((start + (np.int64(ca[r]) * w1 + cb[r]) * w2 + cc[r]) << 2) + cell[r]] += 1
     return acc
+
+
+@njit(parallel=True, cache=True, nogil=True)
+def _class_rows(P, y, eps):  # pragma: no cover - compiled
+    # One pass over a (classes × rows) probability matrix: the most probable class (the first on a
+    # tie, as numpy's argmax), -ln p(true class) clipped, and Σ_c (p_c − [y = c])².
+    k, n = P.shape
+    yhat = np.empty(n, dtype=np.int8)
+    ll = np.empty(n)
+    br = np.empty(n)
+    for i in prange(n):
+        best = 0
+        bv = P[0, i]
+        s2 = 0.0
+        for c in range(k):
+            v = P[c, i]
+            s2 += v * v
+            if v > bv:
+                bv = v
+                best = c
+        yhat[i] = best
+        pt = P[y[i], i]
+        ll[i] = -np.log(min(max(pt, eps), 1.0 - eps))
+        br[i] = s2 - 2.0 * pt + 1.0
+    return yhat, ll, br

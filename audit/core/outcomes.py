@@ -53,6 +53,7 @@ class Outcomes:
     positive_inferred: bool
     prediction_source: str  # "column", "threshold" or "most probable class"
     probs: np.ndarray | None = None  # (rows, classes) probabilities of a multi-class audit
+    losses: tuple[np.ndarray, np.ndarray] | None = None  # per-row log loss and Brier (multi-class)
 
 
 def _row(pos: int) -> str:
@@ -183,8 +184,8 @@ def profile_outcomes(df: pd.DataFrame, cfg, *, offset: int = 0, rows: np.ndarray
     cache: dict[str, Any] = {"y": (ycodes, ytext)}
     if isinstance(cfg.score, dict):
         cols = [_check_score(df[c], c, where) for c in cfg.score.values()]
-        probs = np.column_stack(cols)
-        total = probs.sum(axis=1)
+        probs = np.stack(cols)  # classes × rows: each class's column stays contiguous
+        total = probs.sum(axis=0)
         off = np.abs(total - 1.0) > PROB_SUM_TOLERANCE
         if off.any():  # reported after the classes are known (a missing class explains it better)
             i = _first_bad(off)
@@ -276,25 +277,29 @@ class OutcomeSpec:
             p = cache.get("score")
             if p is None:
                 p = pd.to_numeric(df[self.score], errors="coerce").to_numpy(dtype=float)
+        losses = None
         if self.probs is not None:
-            probs = cache.get("probs")
-            if probs is None:
-                probs = np.column_stack([pd.to_numeric(df[c], errors="coerce").to_numpy(dtype=float)
-                                         for c in self.probs.values()])
-            # columns in class order
-            order = [list(self.probs).index(c) for c in self.classes]
+            by_class = cache.get("probs")
+            if by_class is None:
+                by_class = np.stack([pd.to_numeric(df[c], errors="coerce").to_numpy(dtype=float)
+                                     for c in self.probs.values()])
+            order = [list(self.probs).index(c) for c in self.classes]  # rows in class order
             if order != list(range(len(order))):
-                probs = probs[:, order]
+                by_class = by_class[order]
+            from .tally import class_rows, use_compiled
+
+            top, ll, br = class_rows(y, by_class, compiled=use_compiled(len(y), 40))
+            probs, losses = by_class.T, (ll, br)
         if self.pred is not None:
             pcodes, ptext = cache.get("pred") or _canonical_codes(df[self.pred])
             yhat = _is_text(pcodes, ptext, self.classes)
         elif probs is not None:
-            yhat = np.argmax(probs, axis=1).astype(np.int8)  # ties: the class that sorts first
+            yhat = top  # the most probable class; ties: the class that sorts first
         else:
             yhat = (p >= self.threshold).view(np.int8)
         return Outcomes(y=y, yhat=yhat, score=p, classes=self.classes, positive=self.positive,
                         positive_inferred=self.positive_inferred, prediction_source=self.prediction_source,
-                        probs=probs)
+                        probs=probs, losses=losses)
 
 
 def natural_key(v: str):

@@ -23,7 +23,7 @@ from ..errors import AuditInputError, shown
 from .auc import ExactAuc, hist_bins, score_histogram, slice_auc
 from .encoding import ID_MIN_DISTINCT, Encoding, choose_columns, fit_encoding, profile_column
 from .outcomes import (OutcomeSpec, check_columns, fit_outcomes, labelled_rows, need_columns, profile_outcomes)
-from .tally import (LOSS_SUMS, Tally, class_losses, plan_families, plan_triples, row_losses, tally, tally_numpy,
+from .tally import (LOSS_SUMS, Tally, plan_families, plan_triples, row_losses, tally, tally_numpy,
                     tally_triples, use_compiled)
 
 #: Equal-width probability bins of the fairness module's calibration error.
@@ -304,8 +304,8 @@ def tally_chunk(df: pd.DataFrame, fitted: Fitted, cfg, *, offset: int = 0, cache
     ll = br = None
     if out.score is not None:
         ll, br = row_losses(out.y, out.score, compiled=compiled and n > 100_000)
-    elif out.probs is not None:
-        ll, br = class_losses(out.y, out.probs)
+    elif out.losses is not None:
+        ll, br = out.losses
     t = tally(codes, cards, cell, ll, br, families=fitted.families, n_classes=k,
               kernel="compiled" if compiled else "numpy")
     if rows_out is not None:
@@ -438,8 +438,8 @@ def tally_source(source: Source, fitted: Fitted, cfg, *, keep: dict | None = Non
             rows["ll"] = rows["br"] = None
             if out.score is not None:
                 rows["ll"], rows["br"] = row_losses(out.y, out.score)
-            elif out.probs is not None:
-                rows["ll"], rows["br"] = class_losses(out.y, out.probs)
+            elif out.losses is not None:
+                rows["ll"], rows["br"] = out.losses
             part = _triples(rows, fitted, cfg, plan, kernel)
             tri = part if tri is None else tri + part
         total = total.joined(tri)

@@ -81,6 +81,18 @@ def class_losses(y: np.ndarray, probs: np.ndarray) -> tuple[np.ndarray, np.ndarr
     return ll, br
 
 
+def class_rows(y: np.ndarray, probs_by_class: np.ndarray, *, compiled: bool = False):
+    """Most probable class (ties: the first), and the multi-class log loss and Brier score of each
+    row, from a (classes × rows) probability matrix — one compiled pass for large tables."""
+    if compiled:
+        from .kernels import _class_rows
+
+        return _class_rows(np.ascontiguousarray(probs_by_class), y.astype(np.int8, copy=False), EPS)
+    yhat = np.argmax(probs_by_class, axis=0).astype(np.int8)
+    ll, br = class_losses(y, probs_by_class.T)
+    return yhat, ll, br
+
+
 def small_histogram(codes: np.ndarray, size: int, *, compiled: bool = False) -> np.ndarray:
     """Counts of each value of a small unsigned integer array."""
     if compiled:
