@@ -281,7 +281,10 @@ def summarize(tl: Tally, fitted: Fitted, cfg: AuditConfig, *, source: SourceInfo
     cols.update(flag_and_rank(cols, alpha=cfg.alpha, higher_is_worse=m.higher_is_worse))
     roles = _roles(cols, counts, sums, rest, rsums, fam_row, pos_row, families, fitted.cards, contrast, cfg,
                    m.higher_is_worse, m_family)
-    df = pd.DataFrame(cols)
+    # Text columns stay Python-object columns: pandas' inference of its own string type costs more than
+    # the rest of the statistics for the 125,000 slices of a triples audit (measured).
+    df = pd.DataFrame({k: (pd.Series(v, dtype=object) if isinstance(v, np.ndarray) and v.dtype == object else v)
+                       for k, v in cols.items()})
 
     whole = df.iloc[0]
     if k_cls == 2:
