@@ -36,7 +36,7 @@ from audit.stats.measure import METRICS  # noqa: E402
 from audit.stats.methods import metric_for  # noqa: E402
 from ui import classes_view, fairness_view, findings_view, folder_view, intake  # noqa: E402
 from ui.memo import REPORTS, RESULTS  # noqa: E402
-from ui.wording import WIDGETS, check_reference, md, page_error, parse_reference  # noqa: E402
+from ui.wording import WIDGETS, check_reference, md, or_nan, page_error, parse_reference  # noqa: E402
 
 DEMO_PATH = os.path.join(ROOT, "demo", "predictions.csv")
 CAUTION = ("**Read flags as signals, not verdicts.** A flag means a slice's numbers differ from the rest of the rows "
@@ -469,7 +469,8 @@ else:
               "roc_auc"]:
         if o.get(k) is None:
             continue
-        rows.append({"metric": k, "value": o[k], f"{lvl}% low": o.get(k + "_low"), f"{lvl}% high": o.get(k + "_high")})
+        rows.append({"metric": k, "value": o[k], f"{lvl}% low": or_nan(o.get(k + "_low")),
+                     f"{lvl}% high": or_nan(o.get(k + "_high"))})
     left.dataframe(pd.DataFrame(rows), hide_index=True, width="stretch", height=35 * (len(rows) + 1) + 3,
                    column_config={"value": NUM4, f"{lvl}% low": NUM4, f"{lvl}% high": NUM4})
     right.plotly_chart(charts.confusion(o, result.classes, title="Confusion matrix, all rows"), key="confusion_all")

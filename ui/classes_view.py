@@ -12,7 +12,7 @@ import pandas as pd
 from audit.engine import ALL
 from audit.faces import charts
 from audit.faces.prose import class_drivers, prediction_words
-from ui.wording import md
+from ui.wording import md, or_nan
 
 AVERAGES = ["accuracy", "error_rate", "macro_f1", "micro_f1", "weighted_f1", "macro_precision", "macro_recall",
             "log_loss", "brier"]
@@ -24,7 +24,8 @@ def averages_table(result, lvl: int) -> pd.DataFrame:
     for k in AVERAGES:
         if o.get(k) is None:
             continue
-        rows.append({"metric": k, "value": o[k], f"{lvl}% low": o.get(k + "_low"), f"{lvl}% high": o.get(k + "_high")})
+        rows.append({"metric": k, "value": o[k], f"{lvl}% low": or_nan(o.get(k + "_low")),
+                     f"{lvl}% high": or_nan(o.get(k + "_high"))})
     return pd.DataFrame(rows)
 
 

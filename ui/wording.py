@@ -118,3 +118,8 @@ def check_reference(refs: dict[str, str], bad: list[str], protected: list[str]) 
 
 def _pairs(items):
     return [(a, b) for i, a in enumerate(items) for b in items[i + 1:]]
+
+
+def or_nan(x):
+    """An interval end the engine left undefined shows as an empty cell, not the word None."""
+    return float("nan") if x is None else x
