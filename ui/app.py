@@ -36,7 +36,7 @@ from audit.stats.measure import METRICS  # noqa: E402
 from audit.stats.methods import metric_for  # noqa: E402
 from ui import classes_view, fairness_view, findings_view, folder_view, intake  # noqa: E402
 from ui.memo import REPORTS, RESULTS  # noqa: E402
-from ui.wording import WIDGETS, check_reference, md, or_nan, page_error, parse_reference  # noqa: E402
+from ui.wording import WIDGETS, check_reference, fmt, md, or_nan, page_error, parse_reference  # noqa: E402
 
 DEMO_PATH = os.path.join(ROOT, "demo", "predictions.csv")
 CAUTION = ("**Read flags as signals, not verdicts.** A flag means a slice's numbers differ from the rest of the rows "
@@ -106,14 +106,6 @@ def choose_many(where, label: str, options: list, guess: list, name: str, *deps,
     default = [x for x in prev if x in options] if prev is not None else [x for x in guess if x in options]
     value = where.multiselect(label, options, default=default, key=f"{name}-{_h(options, *deps)}", **kw)
     return remember(name, list(value))
-
-
-def fmt(x, d=4) -> str:
-    try:
-        x = float(x)
-    except (TypeError, ValueError):
-        return "—"
-    return "—" if x != x else f"{x:.{d}f}"
 
 
 # ----------------------------------------------------------------------------- the file

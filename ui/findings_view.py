@@ -11,7 +11,7 @@ from __future__ import annotations
 import pandas as pd
 
 from audit.faces.prose import class_drivers, fmt_p, is_multiclass
-from ui.wording import md
+from ui.wording import fmt, md
 
 FINDING_COLUMNS = ["finding_rank", "slice", "n", "metric_value", "rest_value", "diff", "diff_low_adj",
                    "diff_high_adj", "q_value", "echoes"]
@@ -33,14 +33,6 @@ def findings_table(result) -> pd.DataFrame:
     """The findings as the page's table (the engine's columns, renamed for reading)."""
     f = result.findings()
     return f[[c for c in FINDING_COLUMNS if c in f.columns]].rename(columns={"metric_value": result.metric.name})
-
-
-def _n(x, d=4) -> str:
-    try:
-        x = float(x)
-    except (TypeError, ValueError):
-        return "—"
-    return "—" if x != x else f"{x:.{d}f}"
 
 
 def drivers_text(result, name: str) -> str:
@@ -89,9 +81,9 @@ def show(result, st, *, key: str = "") -> None:
         label = (f"Finding {int(r['finding_rank'])} · {md(r['slice'])} — "
                  + (f"{k} echo{'es' if k != 1 else ''} folded under it" if k else "no echoes"))
         box = st.expander(label, expanded=False)
-        box.markdown(f"n = **{int(r['n']):,}** rows · {md(name)} {_n(r['metric_value'])} against "
-                     f"{_n(r['rest_value'])} in the rest · difference {_n(r['diff'])}, selection-adjusted "
-                     f"interval [{_n(r['diff_low_adj'])}, {_n(r['diff_high_adj'])}] · adjusted p "
+        box.markdown(f"n = **{int(r['n']):,}** rows · {md(name)} {fmt(r['metric_value'])} against "
+                     f"{fmt(r['rest_value'])} in the rest · difference {fmt(r['diff'])}, selection-adjusted "
+                     f"interval [{fmt(r['diff_low_adj'])}, {fmt(r['diff_high_adj'])}] · adjusted p "
                      f"{fmt_p(r['q_value'])}")
         why = drivers_text(result, r["slice"])
         if why:

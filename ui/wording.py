@@ -123,3 +123,12 @@ def _pairs(items):
 def or_nan(x):
     """An interval end the engine left undefined shows as an empty cell, not the word None."""
     return float("nan") if x is None else x
+
+
+def fmt(x, d=4) -> str:
+    """A number with ``d`` decimals, or a dash where there is none."""
+    try:
+        x = float(x)
+    except (TypeError, ValueError):
+        return "—"
+    return "—" if x != x else f"{x:.{d}f}"

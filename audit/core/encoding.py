@@ -29,6 +29,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import AuditInputError, shown
+from .values import natural_key
 
 MISSING = "(missing)"
 #: Numeric values used to fit quantile bin edges: the first this many non-missing values.
@@ -188,13 +189,6 @@ def profile_column(s: pd.Series, name: str, *, as_text: bool = False, cache: dic
 
 
 # ----------------------------------------------------------------------------- fitted encoding
-def _natural_key(v: str):
-    try:
-        return (0, float(v), v)
-    except ValueError:
-        return (1, 0.0, v)
-
-
 def plain(x: float) -> str:
     """An edge as plain digits, exactly (the shortest text that reads back as the same float)."""
     if x == np.inf:
@@ -358,7 +352,7 @@ def _categorical(p: ColumnProfile, kind: str) -> AttributeCoding:
         values = sorted(p.distinct or ())
         levels = [_text_of(v) for v in values]
     else:
-        levels = sorted((t for t, c in (p.counts or {}).items() if c > 0), key=_natural_key)
+        levels = sorted((t for t, c in (p.counts or {}).items() if c > 0), key=natural_key)
     return AttributeCoding(p.name, kind, tuple(levels + ([MISSING] if p.n_missing else [])), n_missing=p.n_missing)
 
 

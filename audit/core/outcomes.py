@@ -22,7 +22,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import AuditInputError, shown
-from .values import canonical, numeric_text
+from .values import canonical, natural_key, numeric_text
 
 #: Most classes a label may have (cells per slice grow as the square).
 MAX_CLASSES = 50
@@ -300,14 +300,6 @@ class OutcomeSpec:
         return Outcomes(y=y, yhat=yhat, score=p, classes=self.classes, positive=self.positive,
                         positive_inferred=self.positive_inferred, prediction_source=self.prediction_source,
                         probs=probs, losses=losses)
-
-
-def natural_key(v: str):
-    """Numbers in numeric order, then text."""
-    try:
-        return (0, float(v), v)
-    except ValueError:
-        return (1, 0.0, v)
 
 
 def fit_outcomes(profile: OutcomeProfile, cfg) -> OutcomeSpec:

@@ -59,7 +59,7 @@ def use_compiled(n_rows: int, n_families: int, kernel: str = "auto") -> bool:
 def row_losses(y: np.ndarray, score: np.ndarray, *, compiled: bool | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Per-row log loss (natural log, clipped at ``EPS``) and Brier score."""
     if compiled is None:
-        compiled = len(y) > 100_000 and use_compiled(len(y), 1, "auto") and len(y) * 20 >= COMPILED_MIN_WORK
+        compiled = use_compiled(len(y), 1)
     if compiled:
         from .kernels import _losses
 

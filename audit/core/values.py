@@ -34,3 +34,11 @@ def numeric_text(text: str) -> str | None:
     except (TypeError, ValueError):
         return None
     return str(int(x)) if x.is_integer() and abs(x) < 1e15 else None
+
+
+def natural_key(v: str):
+    """Sort key: numbers in numeric order first, then text."""
+    try:
+        return (0, float(v), v)
+    except ValueError:
+        return (1, 0.0, v)

@@ -19,12 +19,10 @@ Welch's t test from n, Σx, Σx².
 """
 from __future__ import annotations
 
-from statistics import NormalDist
-
 import numpy as np
 
 from .compare import cohens_d, cohens_h, two_proportion, welch_p
-from .intervals import f1_interval, mean_interval, mover_difference, proportion_interval, welch_difference
+from .intervals import _z, f1_interval, mean_interval, mover_difference, proportion_interval, welch_difference
 from .measure import ratio
 
 
@@ -86,10 +84,6 @@ def macro_f1_variance(c: np.ndarray) -> np.ndarray:
         m2 = (g * g * p).sum(axis=(1, 2))
         var = (m2 - m1 * m1) / n
     return np.where(n > 0, np.maximum(var, 0.0), np.nan)
-
-
-def _z(level: float) -> float:
-    return NormalDist().inv_cdf(0.5 + level / 2)
 
 
 def macro_f1_interval(c: np.ndarray, *, level: float):

@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 
 from ..core.encoding import AttributeCoding
-from ..core.stream import Fitted, SourceInfo, median_and_above
+from ..core.stream import CALIBRATION_BINS, Fitted, SourceInfo, median_and_above
 from ..core.tally import Tally
 from ..settings import AuditConfig
 from .compare import cohens_d, cohens_h, two_proportion, welch_p
@@ -79,7 +79,6 @@ def _metric_block(cfg: AuditConfig, c: dict, rc: dict, v: dict, rv: dict, sums, 
         diff, dlo, dhi = mover_difference(val, lo1, hi1, rval, lo2, hi2)
         p, test = two_proportion(k1, d1, k2, d2)
         eff = cohens_h(val, rval)
-        eff_name = "cohens_h"
         support, rsupport = d1, d2
     elif m.kind == "f1":
         val, rval = v["f1"], rv["f1"]
@@ -88,7 +87,6 @@ def _metric_block(cfg: AuditConfig, c: dict, rc: dict, v: dict, rv: dict, sums, 
         diff, dlo, dhi = mover_difference(val, lo1, hi1, rval, lo2, hi2)
         p, test = two_proportion(c["tp"], c["tp_fp_fn"], rc["tp"], rc["tp_fp_fn"])
         eff = cohens_h(val, rval)
-        eff_name = "cohens_h"
         support, rsupport = c["tp_fp_fn"], rc["tp_fp_fn"]
     else:
         j = 0 if m.name == "log_loss" else 2
@@ -99,16 +97,15 @@ def _metric_block(cfg: AuditConfig, c: dict, rc: dict, v: dict, rv: dict, sums, 
         p = welch_p(diff, se, df)
         test = np.full(n1, "welch", dtype=object)
         eff = cohens_d(diff, var1, var2)
-        eff_name = "cohens_d"
         support, rsupport = c["n"], rc["n"]
     return {"metric_value": val, "metric_low": lo1, "metric_high": hi1, "rest_value": rval,
             "diff": diff, "diff_low": dlo, "diff_high": dhi, "effect_size": eff,
-            "p_value": p, "test": test, "_support": support, "_rsupport": rsupport, "_eff_name": eff_name}
+            "p_value": p, "test": test, "_support": support, "_rsupport": rsupport}
 
 
 def _binary_columns(counts, rest, sums, rsums, auc, cfg, n_rows) -> dict[str, Any]:
     """Counts, every rate with its interval, F1, Jaccard, losses and ROC AUC of each slice (two classes)."""
-    c, v = count_frame(counts), None
+    c = count_frame(counts)
     v = metric_values(c, sums)
     lvl, meth = cfg.level, cfg.interval
     cols: dict[str, Any] = {
@@ -330,7 +327,7 @@ def summarize(tl: Tally, fitted: Fitted, cfg: AuditConfig, *, source: SourceInfo
                 per = []
                 for q, fam in enumerate(tl.groups.families):
                     a_, b_ = tl.groups.offsets[q], tl.groups.offsets[q + 1]
-                    per.append(sums_g[a_:b_].reshape(-1, 10).sum(axis=1))
+                    per.append(sums_g[a_:b_].reshape(-1, CALIBRATION_BINS).sum(axis=1))
                 scoring = (fitted.exact_median, per)
         fairness = assess(tl.groups, fitted, cfg, scoring=scoring)
     timings["total"] = time.perf_counter() - t0
