@@ -336,28 +336,42 @@ def _triple_kernel(cm, cell, ll, br, fi, fj, fk, cj, ck, rm_off, rowmap, lut_off
 
 
 @njit(parallel=True, cache=True, nogil=True)
-def _group_triple_counts(gt, cell, ga, gb, gc, wb, wc, off, total, nth, block):  # pragma: no cover - compiled
+def _group_triple_counts(gt, cell, pa, pb, pw, pstart, pend, gc, wc, off, total, nth, block):  # pragma: no cover - compiled
     # Cell counts only (int32, four per cell of each group triple): a quarter of the float
-    # record's bytes, so a group triple's table stays in cache. Same walk as _binary_kernel.
+    # record's bytes, so a group triple's table stays in cache. Rows in blocks as in
+    # _binary_kernel; per block, each group's code is joined to the cell once (c4 = code*4 + cell)
+    # and each pair of groups (pa, pb) is joined once (tmp = a*pw + b), so a group triple
+    # (pair p, third group gc[k] of width wc[k]) costs one multiply-add and one increment per row.
+    # The triples of pair p are pstart[p] .. pend[p] - 1.
     n = cell.shape[0]
-    nf = ga.shape[0]
+    ng = gt.shape[0]
+    npair = pa.shape[0]
     acc = np.zeros((nth, total * 4), dtype=np.int32)
     chunk = (n + nth - 1) // nth
     for t in prange(nth):
         lo = t * chunk
         hi = min(n, lo + chunk)
         o = acc[t]
+        tmp = np.empty(block, dtype=np.int32)
+        c4 = np.empty((ng, block), dtype=np.int32)
         for blo in range(lo, hi, block):
-            bhi = min(hi, blo + block)
-            for k in range(nf):
-                start = off[k]
-                ca = gt[ga[k]]
-                cb = gt[gb[k]]
-                cc = gt[gc[k]]
-                w1 = wb[k]
-                w2 = wc[k]
-                for r in range(blo, bhi):
-                    o[((start + (np.int64(ca[r]) * w1 + cb[r]) * w2 + cc[r]) << 2) + cell[r]] += 1
+            m = min(hi, blo + block) - blo
+            for g in range(ng):
+                cg = gt[g]
+                for r in range(m):
+                    c4[g, r] = (np.int32(cg[blo + r]) << 2) + cell[blo + r]
+            for p in range(npair):
+                ca = gt[pa[p]]
+                cb = gt[pb[p]]
+                w = pw[p]
+                for r in range(m):
+                    tmp[r] = np.int32(ca[blo + r]) * w + cb[blo + r]
+                for k in range(pstart[p], pend[p]):
+                    start = off[k] * 4
+                    w2 = wc[k] * 4
+                    cc = c4[gc[k]]
+                    for r in range(m):
+                        o[start + tmp[r] * w2 + cc[r]] += 1
     return acc
 
 

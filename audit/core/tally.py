@@ -560,19 +560,26 @@ def _grouped_triple_counts(codes, cards, cell, plan: TriplePlan, offsets, limit:
         for a in g[1:]:
             np.multiply(v, gdt(cards[a]), out=v)
             np.add(v, codes[a], out=v, casting="unsafe")
-    col = lambda i: np.array([t[i] for t in gtr], dtype=np.int64)  # noqa: E731
-    acc = _group_triple_counts(gt, cell.astype(np.int8, copy=False), col(0), col(1), col(2),
-                               np.array([gcards[t[1]] for t in gtr], dtype=np.int64),
-                               np.array([gcards[t[2]] for t in gtr], dtype=np.int64),
-                               goff[:-1].copy(), int(goff[-1]), nth, KERNEL_BLOCK)
+    # gtr runs through the pairs of groups in order, each pair's third groups contiguous.
+    pairs = list(dict.fromkeys((a, b) for a, b, _ in gtr))
+    first = {p: next(q for q, t in enumerate(gtr) if t[:2] == p) for p in pairs}
+    ends = [first[p] + sum(1 for t in gtr if t[:2] == p) for p in pairs]
+    i64 = lambda xs: np.array(xs, dtype=np.int64)  # noqa: E731
+    acc = _group_triple_counts(gt, cell.astype(np.int8, copy=False), i64([p[0] for p in pairs]),
+                               i64([p[1] for p in pairs]), i64([gcards[p[1]] for p in pairs]),
+                               i64([first[p] for p in pairs]), i64(ends), i64([t[2] for t in gtr]),
+                               i64([gcards[t[2]] for t in gtr]), goff[:-1].copy(), int(goff[-1]), nth, KERNEL_BLOCK)
     acc = acc.astype(np.int64).sum(axis=0).reshape(-1, kk) if nth > 1 else acc[0].astype(np.int64).reshape(-1, kk)
     out = np.zeros((int(offsets[-1]), kk), dtype=np.int64)
+    holder: dict[tuple[int, ...], int] = {}  # a set of groups -> the first group triple holding it
+    for q, t in enumerate(gtr):
+        for sub in ((t[0],), (t[1],), (t[2],), (t[0], t[1]), (t[0], t[2]), (t[1], t[2]), t):
+            holder.setdefault(sub, q)
     for f, fam in enumerate(plan.families):
         if not len(plan.kept[f]):
             continue
-        need = sorted({where[a] for a in fam})
-        gtrip = next(t for t in gtr if all(g in t for g in need))
-        q = gtr.index(gtrip)
+        q = holder[tuple(sorted({where[a] for a in fam}))]
+        gtrip = gtr[q]
         axes_attrs = groups[gtrip[0]] + groups[gtrip[1]] + groups[gtrip[2]]
         block = acc[goff[q]:goff[q + 1]].reshape([cards[a] for a in axes_attrs] + [kk])
         pos = [axes_attrs.index(a) for a in fam]

@@ -145,19 +145,36 @@ def wilson(k, n, *, level: float = 0.95):
     >>> round(float(lo), 4), round(float(hi), 4)
     (0.2553, 0.3662)
     """
-    k = np.asarray(k, dtype=float)
-    n = np.asarray(n, dtype=float)
+    shape = np.broadcast(k, n).shape
+    k, n = np.broadcast_arrays(np.atleast_1d(k), np.atleast_1d(np.asarray(n, dtype=float)))
     z = _z(level)
+    z2 = z * z
+    # The formula above, operation for operation, written into few arrays (a slice table has
+    # up to hundreds of thousands of rows and fourteen such intervals).
     with np.errstate(invalid="ignore", divide="ignore"):
-        p = k / n
-        denom = 1.0 + z * z / n
-        centre = (p + z * z / (2 * n)) / denom
-        half = z * np.sqrt(p * (1 - p) / n + z * z / (4 * n * n)) / denom
-        lo, hi = centre - half, centre + half
+        p = np.divide(k, n)
+        denom = np.divide(z2, n)
+        denom += 1.0
+        centre = np.divide(z2, 2 * n)
+        centre += p
+        centre /= denom
+        half = np.subtract(1, p)
+        half *= p
+        half /= n
+        t = np.multiply(4, n)
+        t *= n
+        np.divide(z2, t, out=t)
+        half += t
+        np.sqrt(half, out=half)
+        half *= z
+        half /= denom
+        lo = np.subtract(centre, half, out=t)
+        hi = np.add(centre, half, out=half)
     bad = ~(n > 0)
-    lo = np.where(bad, np.nan, np.clip(lo, 0.0, 1.0))
-    hi = np.where(bad, np.nan, np.clip(hi, 0.0, 1.0))
-    return lo, hi
+    for x in (lo, hi):
+        np.clip(x, 0.0, 1.0, out=x)
+        x[bad] = np.nan
+    return lo.reshape(shape), hi.reshape(shape)
 
 
 def clopper_pearson(k, n, *, level: float = 0.95):

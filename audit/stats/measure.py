@@ -17,8 +17,9 @@ RATE_COLUMNS = list(RATES)
 
 
 def ratio(num, den) -> np.ndarray:
-    num = np.asarray(num, dtype=float)
-    den = np.asarray(den, dtype=float)
+    # Integer counts are divided as they are (numpy converts them in its loop, no float copies).
+    num = np.asarray(num)
+    den = np.asarray(den)
     out = np.full(np.broadcast(num, den).shape, np.nan)
     np.divide(num, den, out=out, where=den > 0)
     return out
@@ -33,6 +34,18 @@ def count_frame(counts: np.ndarray) -> dict[str, np.ndarray]:
         "actual_pos": tp + fn, "actual_neg": tn + fp, "pred_pos": tp + fp, "pred_neg": tn + fn,
         "errors": fp + fn, "correct": tp + tn, "tp_fp_fn": tp + fp + fn,
     }
+
+
+def metric_value(c: dict[str, np.ndarray], sums: np.ndarray | None, name: str) -> np.ndarray:
+    """One metric of ``metric_values`` (the same numbers), computed alone."""
+    if name in RATES:
+        num, den = RATES[name]
+        return ratio(c[num], c[den])
+    if name == "f1":
+        return ratio(2 * c["tp"], 2 * c["tp"] + c["fp"] + c["fn"])
+    if name in ("log_loss", "brier") and sums is not None:
+        return ratio(sums[:, 0 if name == "log_loss" else 2], c["n"])
+    return metric_values(c, sums)[name]
 
 
 def metric_values(c: dict[str, np.ndarray], sums: np.ndarray | None) -> dict[str, np.ndarray]:

@@ -36,7 +36,8 @@ def flag_and_rank(cols: Mapping[str, np.ndarray], *, alpha: float, higher_is_wor
                   higher_is_worse=higher_is_worse)
     sev = np.where(tested, sev, np.nan)
     idx = np.flatnonzero(tested)
-    order = np.lexsort((idx, np.asarray(cols["p_value"], dtype=float)[idx], -sev[idx]))
+    # lexsort is stable, so ties of severity and p-value keep table order (idx is increasing).
+    order = np.lexsort((np.asarray(cols["p_value"], dtype=float)[idx], -sev[idx]))
     rank = np.zeros(len(tested), dtype=np.int64)
     rank[idx[order]] = np.arange(1, len(idx) + 1)
     return {"worse_than_rest": tested & worse, "flagged": flagged, "severity": sev,
@@ -50,7 +51,7 @@ def rank_among(members: np.ndarray, severity: np.ndarray, p_value: np.ndarray) -
     members = np.asarray(members, dtype=bool)
     idx = np.flatnonzero(members)
     sev = np.asarray(severity, dtype=float)[idx]
-    order = np.lexsort((idx, np.asarray(p_value, dtype=float)[idx], -np.where(np.isnan(sev), -np.inf, sev)))
+    order = np.lexsort((np.asarray(p_value, dtype=float)[idx], -np.where(np.isnan(sev), -np.inf, sev)))  # stable
     rank = np.zeros(len(members), dtype=np.int64)
     rank[idx[order]] = np.arange(1, len(idx) + 1)
     return pd.arrays.IntegerArray(rank, ~members)
