@@ -5,6 +5,7 @@ run's AUC is checked against scikit-learn in tests/test_auc.py and the streamed 
 bound in tests/test_stream.py. One local cluster of two worker processes serves the module
 (platform notes: bound to 127.0.0.1, no dashboard, scratch space in a temporary folder)."""
 import os
+import re
 import signal
 
 import numpy as np
@@ -105,6 +106,101 @@ def test_a_worker_lost_mid_run_is_replaced_and_the_result_is_unchanged(client, f
     client.wait_for_workers(2, timeout=60)
 
 
+try:
+    from distributed.diagnostics.plugin import WorkerPlugin
+except ImportError:  # pragma: no cover - the module is skipped without distributed
+    WorkerPlugin = object
+
+
+class _Sabotage(WorkerPlugin):
+    """Makes the first part of the counting pass fail on every worker, present and future (the
+    scheduler installs a registered plugin on workers that join later, such as the one a nanny
+    starts after a loss). ``how="raise"``: the read raises; ``how="die"``: the worker's process
+    ends at once, as after a crash or the kernel's out-of-memory killer. Every attempt appends
+    a line to ``log``."""
+
+    name = "fissure-sabotage"
+
+    def __init__(self, how: str, log: str):
+        self.how, self.log = how, log
+
+    def setup(self, worker):
+        import audit.core.distributed as d
+
+        how, log, base = self.how, self.log, d.PartSource
+        self.saved = base
+
+        class Failing(base):
+            def chunks(self, columns=None):
+                if columns is not None and self.offset == 0:  # the counting pass, first part
+                    with open(log, "a") as fh:
+                        fh.write(f"{os.getpid()}\n")
+                    if how == "die":
+                        os._exit(1)
+                    raise RuntimeError("the share holding the file went away")
+                yield from super().chunks(columns)
+
+        d.PartSource = Failing
+
+    def teardown(self, worker):
+        import audit.core.distributed as d
+
+        d.PartSource = self.saved
+
+
+def test_a_task_that_keeps_raising_is_retried_then_one_line(client, files, tmp_path):
+    from audit.core.distributed import TASK_RETRIES
+
+    log = tmp_path / "attempts"
+    client.register_plugin(_Sabotage("raise", str(log)))
+    try:
+        with pytest.raises(ClusterError, match=r"^the local Dask cluster could not finish the audit \(RuntimeError: "
+                                               r"the share holding the file went away\); nothing was written$") as e:
+            audit.run(files["parquet"], chunk_rows=250, engine="dask", scheduler=client, **SETTINGS)
+    finally:
+        client.unregister_worker_plugin(_Sabotage.name)
+    assert isinstance(e.value.__cause__, RuntimeError)  # kept for a developer calling the API
+    # Dask's retries: the first attempt and TASK_RETRIES more, then the run stops.
+    assert len(log.read_text().splitlines()) == 1 + TASK_RETRIES
+    # The cluster is fine for the next run: the failed run's tasks were cancelled, its keys were its own.
+    res = audit.run(files["parquet"], chunk_rows=250, engine="dask", scheduler=client, **SETTINGS)
+    assert res.n_rows == 4454
+
+
+def test_workers_lost_until_dask_gives_up_is_one_line_and_no_output_folder(files, tmp_path, capsys):
+    # Dask's own limit on lost workers: a task whose workers die more than
+    # distributed.scheduler.allowed-failures times is failed by the scheduler (KilledWorker).
+    # A cluster of its own with the limit at 0 (default 3), so the first loss is already one too
+    # many: a limit of 1 costs two worker restarts and 10-25 s on this machine, and the rerun
+    # after a loss is tested above (test_a_worker_lost_mid_run_is_replaced...).
+    import dask
+    from distributed import Client
+
+    log = tmp_path / "attempts"
+    with dask.config.set({"distributed.scheduler.allowed-failures": 0}):
+        cluster = start_local_cluster(2, local_directory=str(tmp_path / "scratch"))
+    c = Client(cluster)
+    try:
+        c.register_plugin(_Sabotage("die", str(log)))
+        out = tmp_path / "out"
+        code = main(["audit", files["parquet"], "--label", "Status", "--score", "p_bad", "--positive", "bad",
+                     "--chunk-rows", "250", "--engine", "dask", "--scheduler", cluster.scheduler_address,
+                     "--out", str(out)])
+    finally:
+        c.close()
+        cluster.close()
+    err = capsys.readouterr().err
+    assert code == 2, err
+    assert err.count("\n") == 1 and "Traceback" not in err
+    # The task named is the one whose workers died too often: the part that kills them, or one
+    # queued beside it on the same worker (Dask cannot tell them apart).
+    assert re.fullmatch(rf"fissure: the Dask cluster at {cluster.scheduler_address} lost the worker running part "
+                        r"\d+ of the counting pass \(distributed\.scheduler\.allowed-failures = 0\); the audit was "
+                        r"stopped and nothing was written\n", err), err
+    assert len(log.read_text().splitlines()) >= 1
+    assert not out.exists() and not list(tmp_path.glob("out*"))
+
+
 def test_an_unreachable_scheduler_is_one_line_and_nothing_is_written(files, tmp_path, capsys):
     with pytest.raises(ClusterError, match="cannot reach the Dask scheduler at 'tcp://127.0.0.1:9'"):
         audit.run(files["csv"], engine="dask", scheduler="tcp://127.0.0.1:9", **SETTINGS)
@@ -148,3 +244,18 @@ def test_progress_moves_with_every_part_in_both_passes(client, files, engine):
     assert len(first) >= 17 and len(second) >= 17  # 18 row groups of 250 rows
     fracs = [f for _, f in seen]
     assert fracs == sorted(fracs) and fracs[-1] == 1.0  # the bar never goes back
+
+
+# ----------------------------------------------------------------------------- triples
+@pytest.mark.parametrize("metric", ["error_rate", "log_loss"])
+def test_triples_on_dask_equal_the_in_memory_run(client, files, metric):
+    # max_order=3: pairs counted on the workers, the triple plan made on the client from the
+    # summed pairs (support only), the kept triples counted on the workers, summed, joined.
+    # log_loss makes the triples carry the loss sums too (the float kernel).
+    settings = dict(SETTINGS, max_order=3, metric=metric)
+    ref = audit.run(pd.read_csv(files["csv"]), **settings)
+    res = audit.run(files["dir"], chunk_rows=700, engine="dask", scheduler=client, **settings)
+    assert (ref.slices["order"] == 3).sum() > 100
+    _same(ref, res, auc_bound=res.method["roc_auc_error_bound"])
+    assert res.method["triples"] == ref.method["triples"]  # considered, pruned, kept, tested, flagged
+    assert res.method["triples"]["pruned"] > 0

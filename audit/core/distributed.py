@@ -16,23 +16,40 @@ and the tallies (counts and sums per slice, score histograms), never the rows. T
 equals the chunked run on one machine: counts identical, sums to rounding, ROC AUC from the
 same score histograms (same bound), the fairness median exact.
 
-Lost workers: the scheduler runs a lost worker's tasks again elsewhere (up to its
-``distributed.scheduler.allowed-failures``, 3 by default); a run that still fails raises
-:class:`ClusterError`, one line, before anything is written.
+* Pass 3 (``max_order=3`` only): the client plans the triples from the reduced pair tally
+  (``tally.plan_triples``: support pruning on row counts, never on outcomes), sends the plan
+  to every worker once, and the workers tally the kept triples of their parts
+  (``tally.tally_triples``); the sum is joined to the pairs' tally, as on one machine.
+
+Failures, with Dask's own settings:
+
+* a worker lost while running a task (killed, out of memory, its machine gone): the scheduler
+  runs the task again on another worker, up to ``distributed.scheduler.allowed-failures``
+  times (3 by default; a scheduler setting: ``DASK_DISTRIBUTED__SCHEDULER__ALLOWED_FAILURES``
+  in the scheduler's environment, or the local cluster's, which is started in this process);
+* a task that raises (a read that fails on a network file system) is run again
+  ``TASK_RETRIES`` times (``Client.submit(..., retries=...)``); input errors are not raised
+  by the tasks but returned, so they are reported at once and never retried.
+
+A run that still fails raises :class:`ClusterError`: one line naming the cause, before
+anything is written; the run's tasks still queued on the cluster are cancelled.
 """
 from __future__ import annotations
 
 import io
 import os
+import uuid
 from dataclasses import dataclass, field, replace
 from typing import Any, Callable
 
+import numpy as np
 import pandas as pd
 
 from ..errors import AuditInputError, shown
-from .stream import (CsvSource, Evidence, Fitted, ParquetSource, Source, SourceInfo, _digest, _expand,
+from .outcomes import labelled_rows
+from .stream import (CsvSource, Evidence, Fitted, ParquetSource, Source, SourceInfo, _digest, _expand, _triples,
                      csv_column_types, fit_evidence, needed_columns, profile_source, read_parquet_part, tally_part)
-from .tally import Tally
+from .tally import Tally, TriplePlan, plan_triples, row_losses
 
 #: Rows per part when ``chunk_rows`` is not given (a part is read in chunks of this many rows too).
 PART_ROWS = 1_000_000
@@ -40,6 +57,9 @@ PART_ROWS = 1_000_000
 FAN_IN = 8
 #: Seconds to wait for a scheduler given by address.
 CONNECT_TIMEOUT = 10
+#: Times a task that raised is run again (Dask's ``retries``); a lost worker's tasks are rerun
+#: up to the scheduler's ``distributed.scheduler.allowed-failures`` instead.
+TASK_RETRIES = 2
 
 Progress = Callable[[str, float], None]
 CSV_EXTS = (".csv", ".tsv", ".txt", ".csv.gz", ".csv.bz2", ".csv.xz", ".csv.zip")
@@ -276,6 +296,36 @@ def _second_pass_task(plan: Plan, index: int, fitted: Fitted, cfg, offset: int, 
     return total
 
 
+def _third_pass_task(plan: Plan, index: int, fitted: Fitted, cfg, offset: int, triples: TriplePlan,
+                     kernel: str) -> Tally | None:
+    """The planned triples of one part (the rows prepared as ``stream.tally_source``'s third pass
+    prepares them, then the same ``tally_triples`` kernel)."""
+    src = PartSource(plan, plan.parts[index], offset)
+    total = None
+    k = fitted.outcomes.n_classes
+    for off, df in src.chunks(columns=needed_columns(fitted, cfg)):
+        if len(df) == 0:
+            continue
+        ok = labelled_rows(df, cfg, offset=off)
+        if ok is not None:
+            df = df[ok]
+        out = fitted.outcomes.apply(df, None)
+        rows = {"codes": fitted.encoding.apply(df, None, offset=off),
+                "cell": (out.y.astype(np.int16) * k + out.yhat).astype(np.int8), "ll": None, "br": None}
+        if out.score is not None:
+            rows["ll"], rows["br"] = row_losses(out.y, out.score)
+        elif out.losses is not None:
+            rows["ll"], rows["br"] = out.losses
+        t = _triples(rows, fitted, cfg, triples, kernel)
+        total = t if total is None else total + t
+    return total
+
+
+def _held(obj):
+    """The object itself: the result of a task that a lost worker's replacement can compute again."""
+    return obj
+
+
 def _add_in_order(*items):
     """The sum of the items, left to right (``None`` items skipped)."""
     total = None
@@ -286,12 +336,16 @@ def _add_in_order(*items):
 
 
 # ----------------------------------------------------------------------------- the client side
-def _reduce(client, futures: list, key: str):
-    """Add futures in row order on the workers, ``FAN_IN`` neighbours at a time; one future."""
+def _reduce(client, futures: list, key: str, keep: list):
+    """Add futures in row order on the workers, ``FAN_IN`` neighbours at a time; one future.
+    ``keep`` receives every future submitted: a failed run cancels them all (the scheduler
+    cancels a task's dependents with it, and expects the client to hold each of them)."""
     level = 0
     while len(futures) > 1:
-        futures = [client.submit(_add_in_order, *futures[i:i + FAN_IN], key=f"{key}-add-{level}-{i}", pure=False)
+        futures = [client.submit(_add_in_order, *futures[i:i + FAN_IN], key=f"{key}-add-{level}-{i}", pure=False,
+                                 retries=TASK_RETRIES)
                    for i in range(0, len(futures), FAN_IN)]
+        keep.extend(futures)
         level += 1
     return futures[0]
 
@@ -309,9 +363,36 @@ def _probe(address: str) -> None:
 
 def _cluster_failed(exc: BaseException, address: str | None) -> ClusterError:
     where = f"the Dask cluster at {address}" if address else "the local Dask cluster"
+    name = type(exc).__name__
+    if name == "KilledWorker":
+        # Dask's own limit: the task's worker died allowed-failures + 1 times.
+        task = str(exc.args[0]) if exc.args else "a task"
+        tries = exc.args[2] + 1 if len(exc.args) > 2 and isinstance(exc.args[2], int) else None
+        what = _task_words(task)
+        lost = (f"the worker running {what}" if tries == 1 else
+                f"its workers {tries or 'several'} times while they ran {what}")
+        return ClusterError(f"{where} lost {lost} (distributed.scheduler.allowed-failures = "
+                            f"{tries - 1 if tries else '?'}); the audit was stopped and nothing was written",
+                            setting="scheduler")
     text = str(exc).splitlines()[0] if str(exc) else ""
-    return ClusterError(f"{where} could not finish the audit ({type(exc).__name__}{': ' + shown(text, 100)[1:-1] if text else ''}); "
-                        "nothing was written", setting="scheduler")
+    hint = ""
+    if isinstance(exc, ImportError) and "audit" in text:
+        hint = "; the workers need Fissure installed (pip install 'fissure[dask]' in their Python)"
+    return ClusterError(f"{where} could not finish the audit ({name}{': ' + shown(text, 100)[1:-1] if text else ''})"
+                        f"{hint}; nothing was written", setting="scheduler")
+
+
+def _task_words(key: str) -> str:
+    """A task's key (``fissure-<run>-tally-3``) in words: "part 4 of the counting pass"."""
+    bits = key.split("-")
+    passes = {"plan": "the listing of the parts", "plan_data": "the plan", "fitted": "the encoding",
+              "triple_plan": "the triple plan", "fit": "the reading pass", "refit": "the reading pass", "tally": "the counting pass",
+              "triples": "the triples pass", "digest": "the file digest"}
+    if len(bits) >= 3 and bits[0] == "fissure" and bits[2] in passes:
+        if len(bits) == 4 and bits[3].isdigit():
+            return f"part {int(bits[3]) + 1} of {passes[bits[2]]}"
+        return passes[bits[2]] if len(bits) == 3 else f"a sum of {passes[bits[2]]}"
+    return f"task {shown(key, 60)}"
 
 
 class DaskRun:
@@ -326,9 +407,6 @@ class DaskRun:
         if isinstance(path, pd.DataFrame) or not isinstance(path, (str, os.PathLike)):
             raise AuditInputError("engine='dask' reads files on the workers: pass a path to a CSV or Parquet file, a "
                                   "folder of Parquet files or a glob of CSV files", setting="engine")
-        if cfg.max_order > 2:
-            raise AuditInputError("engine='dask' audits single attributes and pairs (max_order 1 or 2); run slices of "
-                                  "three attributes with engine='local'", setting="max_order")
         self.path = os.fspath(path)
         self.cfg = cfg
         self.scheduler = scheduler
@@ -340,6 +418,8 @@ class DaskRun:
         self.plan: Plan | None = None
         self._digest = None
         self._tmp = None
+        self.run_id = uuid.uuid4().hex[:10]  # task keys of this run: a failed run's keys never meet the next's
+        self._futures: list = []
 
     # -- connection
     def __enter__(self) -> "DaskRun":
@@ -374,8 +454,33 @@ class DaskRun:
             raise
         return self
 
-    def __exit__(self, *exc) -> None:
+    def __exit__(self, exc_type, exc, tb) -> None:
+        if exc_type is not None:
+            self.cancel()
         self.close()
+
+    def cancel(self) -> None:
+        """Cancel the run's tasks still on the cluster (a failed or interrupted run)."""
+        if self.client is not None and self._futures:
+            try:
+                self.client.cancel(self._futures)
+            except Exception:  # pragma: no cover - the cluster may be gone already
+                pass
+        self._futures = []
+
+    def _key(self, stage: str, i: int | None = None) -> str:
+        return f"fissure-{self.run_id}-{stage}" + ("" if i is None else f"-{i}")
+
+    def _submit(self, fn, *args, key: str):
+        fut = self.client.submit(fn, *args, key=key, pure=False, retries=TASK_RETRIES)
+        self._futures.append(fut)
+        return fut
+
+    def _held(self, obj, stage: str):
+        """``obj`` as a future the tasks depend on. Not ``Client.scatter``: scattered data that
+        every holder loses cannot be recovered (the run's tasks are then cancelled), while the
+        result of a task is computed again from the task, which the scheduler keeps."""
+        return self._submit(_held, obj, key=self._key(stage))
 
     def close(self) -> None:
         if self.own_client and self.client is not None:
@@ -400,16 +505,20 @@ class DaskRun:
         import asyncio
         import concurrent.futures
 
+        address = self.scheduler if isinstance(self.scheduler, str) else None
         try:
             return future.result()
         except AuditInputError:
             raise
         except (OSError, TimeoutError, asyncio.CancelledError, concurrent.futures.CancelledError) as exc:
-            raise _cluster_failed(exc, self.scheduler if isinstance(self.scheduler, str) else None) from None
+            raise _cluster_failed(exc, address) from None
         except Exception as exc:
+            # A worker lost too often (KilledWorker), a task that raised on every retry, a
+            # worker without Fissure: one line for the user; the cause stays chained for a
+            # developer calling the API.
             if type(exc).__name__ in ("KilledWorker", "CommClosedError", "FutureCancelledError", "CancelledError"):
-                raise _cluster_failed(exc, self.scheduler if isinstance(self.scheduler, str) else None) from None
-            raise
+                raise _cluster_failed(exc, address) from None
+            raise _cluster_failed(exc, address) from exc
 
     def _progress(self, futures, stage: str, lo: float, hi: float) -> None:
         from distributed import as_completed
@@ -428,22 +537,25 @@ class DaskRun:
     def fit(self) -> Fitted:
         cfg = self.cfg
         c = self.client
-        self.plan = plan = self._wait(c.submit(make_plan, self.path, cfg.chunk_rows, cfg.encoding, pure=False))
-        self._digest = c.submit(_digest, plan.files, pure=False)  # runs beside the passes
-        pf = c.scatter(plan, broadcast=True, hash=False)
-        futs = [c.submit(_first_pass_task, pf, i, cfg, p.offset, key=f"fissure-fit-{i}", pure=False)
+        self.plan = plan = self._wait(self._submit(make_plan, self.path, cfg.chunk_rows, cfg.encoding,
+                                                   key=self._key("plan")))
+        self._digest = self._submit(_digest, plan.files, key=self._key("digest"))  # runs beside the passes
+        pf = self._held(plan, "plan_data")
+        futs = [self._submit(_first_pass_task, pf, i, cfg, p.offset, key=self._key("fit", i))
                 for i, p in enumerate(plan.parts)]
-        total = _reduce(c, futs, "fissure-fit")
+        total = _reduce(c, futs, self._key("fit"), self._futures)
         self._progress(futs, "reading and checking", 0.0, 1.0)
         first: _FirstPass = self._wait(total)
         del futs, total
+        self._futures = [self._digest]  # the pass is done: its parts' results may go
         self.offsets = [0]
         for n in first.rows:
             self.offsets.append(self.offsets[-1] + n)
         if first.failures:
             index, exc = min(first.failures, key=lambda f: f[0])
             if plan.parts[index].offset is None and index > 0:
-                again = self._wait(c.submit(_first_pass_task, pf, index, cfg, self.offsets[index], pure=False))
+                again = self._wait(self._submit(_first_pass_task, pf, index, cfg, self.offsets[index],
+                                                key=self._key("refit", index)))
                 if again.failures:
                     raise again.failures[0][1]
             raise exc
@@ -453,14 +565,30 @@ class DaskRun:
     def tally(self, fitted: Fitted) -> Tally:
         c = self.client
         slim = replace(fitted, score_hist=None)  # the workers need the median bins, not the histogram
-        ff = c.scatter(slim, broadcast=True, hash=False)
-        pf = c.scatter(self.plan, broadcast=True, hash=False)
-        futs = [c.submit(_second_pass_task, pf, i, ff, self.cfg, self.offsets[i], self.kernel,
-                         key=f"fissure-tally-{i}", pure=False) for i in range(len(self.plan.parts))]
-        total = _reduce(c, futs, "fissure-tally")
-        self._progress(futs, "counting slices", 0.0, 1.0)
+        ff = self._held(slim, "fitted")
+        pf = self._held(self.plan, "plan_data")
+        n = len(self.plan.parts)
+        futs = [self._submit(_second_pass_task, pf, i, ff, self.cfg, self.offsets[i], self.kernel,
+                             key=self._key("tally", i)) for i in range(n)]
+        total = _reduce(c, futs, self._key("tally"), self._futures)
+        triples = self.cfg.max_order >= 3
+        self._progress(futs, "counting slices", 0.0, 0.5 if triples else 1.0)
         out: Tally = self._wait(total)
+        del futs, total
+        self._futures = [self._digest]
         out.n_unlabelled = fitted.n_unlabelled
+        if triples:
+            # Which triples to count depends on the pairs' counts over the whole table: the plan
+            # is made here from the reduced pair tally (row counts only) and sent to every worker.
+            tplan = plan_triples(out, fitted.cards, min_rows=self.cfg.min_support)
+            tf = self._held(tplan, "triple_plan")
+            futs = [self._submit(_third_pass_task, pf, i, ff, self.cfg, self.offsets[i], tf, self.kernel,
+                                 key=self._key("triples", i)) for i in range(n)]
+            total = _reduce(c, futs, self._key("triples"), self._futures)
+            self._progress(futs, "counting triples", 0.5, 1.0)
+            out = out.joined(self._wait(total))
+            del futs, total
+            self._futures = [self._digest]
         return out
 
 
@@ -478,4 +606,5 @@ def start_local_cluster(workers: int | None = None, *, threads: int = 1, local_d
     local_directory = local_directory or tempfile.mkdtemp(prefix="fissure-dask-")
     return LocalCluster(n_workers=n, threads_per_worker=threads, processes=True, dashboard_address=None,
                         host="127.0.0.1", local_directory=local_directory,
-                        env={"NUMBA_NUM_THREADS": str(threads), "OMP_NUM_THREADS": "1"}, silence_logs=40)
+                        env={"NUMBA_NUM_THREADS": str(threads), "OMP_NUM_THREADS": "1"},
+                        silence_logs=50)  # CRITICAL: a failed run is our one line, not the scheduler's log
