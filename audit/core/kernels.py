@@ -85,16 +85,19 @@ def _binary_kernel(gt, cell, ll, br, ga, gb, gcb, off, total, nth, block):  # pr
 
 @njit(parallel=True, cache=True, nogil=True)
 def _class_kernel(gt, cell, ll, br, ga, gb, gcb, off, total, nth, block, kk):  # pragma: no cover - compiled
-    # _binary_kernel for K classes: a record of K² cell counts then Σll, Σll², Σbr, Σbr².
+    # _binary_kernel for K classes, with the record split in two tables: K² int32 cell counts
+    # per slice (one cache line for K = 4) and Σll, Σll², Σbr, Σbr² per slice. A single float
+    # record of K² + 4 values spans two or three lines and measured slower.
     n = cell.shape[0]
     nf = ga.shape[0]
-    rw = kk + 4
-    acc = np.zeros((nth, total * rw), dtype=np.float64)
+    cnt = np.zeros((nth, total * kk), dtype=np.int32)
+    sm = np.zeros((nth, total * 4), dtype=np.float64)
     chunk = (n + nth - 1) // nth
     for t in prange(nth):
         lo = t * chunk
         hi = min(n, lo + chunk)
-        o = acc[t]
+        oc = cnt[t]
+        os_ = sm[t]
         for blo in range(lo, hi, block):
             bhi = min(hi, blo + block)
             for k in range(nf):
@@ -103,15 +106,16 @@ def _class_kernel(gt, cell, ll, br, ga, gb, gcb, off, total, nth, block, kk):  #
                 cb = gt[gb[k]]
                 width = gcb[k]
                 for r in range(blo, bhi):
-                    base = (start + np.int64(ca[r]) * width + cb[r]) * rw
+                    s = start + np.int64(ca[r]) * width + cb[r]
                     a = ll[r]
                     b = br[r]
-                    o[base + cell[r]] += 1.0
-                    o[base + kk] += a
-                    o[base + kk + 1] += a * a
-                    o[base + kk + 2] += b
-                    o[base + kk + 3] += b * b
-    return acc
+                    oc[s * kk + cell[r]] += 1
+                    q = s * 4
+                    os_[q] += a
+                    os_[q + 1] += a * a
+                    os_[q + 2] += b
+                    os_[q + 3] += b * b
+    return cnt, sm
 
 
 @njit(parallel=True, cache=True, nogil=True)

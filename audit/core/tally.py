@@ -390,7 +390,11 @@ def _run_group_kernel(codes, cards, cell, ll, br, groups, gcards, gpairs, n_clas
     else:
         from .kernels import _class_kernel
 
-        acc = _class_kernel(gt, c8, ll, br, ga, gb, gcb, goffsets[:-1].copy(), total, nth, KERNEL_BLOCK, kk)
+        cnt, sm = _class_kernel(gt, c8, ll, br, ga, gb, gcb, goffsets[:-1].copy(), total, nth, KERNEL_BLOCK, kk)
+        acc = np.empty((total, kk + 4))
+        acc[:, :kk] = cnt.sum(axis=0, dtype=np.int64).reshape(total, kk)  # int32 per thread: rows < 2**31
+        acc[:, kk:] = sm.sum(axis=0).reshape(total, 4)
+        return acc
     return acc.sum(axis=0).reshape(total, kk + 4)
 
 
