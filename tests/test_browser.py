@@ -240,3 +240,24 @@ def test_finished_run_folder(page, app_url, tmp_path, demo_csv):
     expect(page.get_by_text("A finished run, read from its folder")).to_be_visible(timeout=60_000)
     expect(page.get_by_text(re.compile(r"^Finding 1 · ")).first).to_be_visible(timeout=30_000)
     page.screenshot(path=os.path.join(_shots(tmp_path), "finished-run.png"), full_page=True)
+
+
+def test_charts_wait_for_their_section(page, app_url, tmp_path):
+    """The first view loads no chart library; opening a chart section draws its chart."""
+    page.set_viewport_size({"width": 1400, "height": 2000})
+    page.goto(app_url, wait_until="domcontentloaded")
+    expect(page.get_by_text("The whole model first")).to_be_visible(timeout=90_000)
+    _idle(page)
+    expect(page.get_by_text("Confusion matrix, all rows").first).to_be_visible()
+    assert page.locator('[data-testid="stPlotlyChart"]').count() == 0
+    loaded = page.evaluate("performance.getEntriesByType('resource').map(r => r.name)")
+    assert not [u for u in loaded if "PlotlyChart" in u]          # the chart library was not even fetched
+    section = page.get_by_text("Chart: each tested slice against the band of chance")
+    section.scroll_into_view_if_needed()
+    section.click()
+    chart = page.locator('[data-testid="stPlotlyChart"]')
+    expect(chart).to_have_count(1, timeout=60_000)
+    expect(chart.locator(".scatterlayer .point").first).to_be_attached(timeout=60_000)
+    expect(chart.get_by_text(re.compile(r"Where noise ends"))).to_be_visible()
+    chart.scroll_into_view_if_needed()
+    page.screenshot(path=os.path.join(_shots(tmp_path), "noise-opened.png"))

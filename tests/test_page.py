@@ -45,6 +45,34 @@ def metric_box(at, label):
     return next(m.value for m in at.metric if m.label == label)
 
 
+def open_charts(at):
+    """Open every chart section (as a click on each would), then rerun."""
+    from ui.sections import CHART_KEYS
+
+    for k in CHART_KEYS:
+        at.session_state[k] = True
+    at.run()
+    assert not at.exception, at.exception
+    return at
+
+
+def charts_by_key(at) -> dict:
+    import json
+
+    return {c.key: json.loads(c.proto.spec) for c in at.get("plotly_chart")}
+
+
+def confusion_counts(at, title: str) -> list[list[int]]:
+    """The counts of the confusion table shown under ``title``."""
+    from ui.sections import table_counts
+
+    heads = [m.value for m in at.markdown]
+    assert f"**{title}**" in heads, heads
+    # Each confusion table follows its bold title; tables appear in page order.
+    titles = [h for h in heads if h.startswith("**Confusion matrix") or h.startswith("**In the ")]
+    return table_counts(at.table[titles.index(f"**{title}**")].value)
+
+
 def upload(at, name, df):
     at.file_uploader(key="upload").set_value((name, df.to_csv(index=False).encode(), "text/csv")).run()
     assert not at.exception, at.exception
@@ -82,7 +110,19 @@ def test_demo_runs_and_table_equals_engine(demo_df):
     assert w(at, "multiselect", "attributes").value == [a.name for a in exp_res.attributes]
     labels = [b.label for b in at.get("download_button")]
     assert {"slices.csv", "summary.json", "report.html"} <= set(labels)
-    assert len(at.get("plotly_chart")) >= 5
+    # The first view draws no chart (the browser's heaviest work); the confusion matrices are tables
+    # with the engine's counts, and each chart section, once opened, draws its chart.
+    assert len(at.get("plotly_chart")) == 0
+    o = exp_res.overall
+    assert confusion_counts(at, "Confusion matrix, all rows") == [[o["tn"], o["fp"]], [o["fn"], o["tp"]]]
+    picked = w(at, "selectbox", "slice_pick").value
+    s, rest = exp_res.slice(picked), exp_res.rest_counts(picked)
+    n = int(s["n"])
+    assert confusion_counts(at, f"In the slice (n={n:,})") == [[s["tn"], s["fp"]], [s["fn"], s["tp"]]]
+    assert confusion_counts(at, f"In the rest (n={rest['n']:,})") == [[rest["tn"], rest["fp"]],
+                                                                      [rest["fn"], rest["tp"]]]
+    open_charts(at)
+    assert {"top_chart", "heatmap", "noise"} <= set(charts_by_key(at))
     assert any("applicant\\_id" in c.value and "identifier" in c.value for c in at.caption)
     assert any("150 MB" in c.value and "refused" in c.value for c in at.caption)  # the upload limit, said in the page
 
@@ -183,7 +223,8 @@ def test_metric_change_keeps_the_slice_picker_and_its_panel_in_step(demo_df):
     assert pick.value == chosen                       # the user's slice is kept while it exists
     assert pick.options[: len(exp.ranked())] == exp.ranked()["slice"].tolist()
     assert _panel_n(at) == int(exp.slice(pick.value)["n"])
-    # Heatmap pickers and the chart they drive agree.
+    # Heatmap pickers and the chart they drive agree (the chart section opened).
+    open_charts(at)
     ha, hb = w(at, "selectbox", "heat_a").value, w(at, "selectbox", "heat_b").value
     import json
 
@@ -217,6 +258,7 @@ def test_filters_drive_the_table_the_chart_and_the_picker():
     w(at, "multiselect", "filter_attrs").set_value(["plan"]).run()
     t = ranked_table(at)
     assert len(t) and t["slice"].str.contains("plan=").all()
+    open_charts(at)
     top = next(json.loads(c.proto.spec) for c in at.get("plotly_chart") if c.key == "top_chart")
     drawn = [y for tr in top["data"] if tr["name"] in ("flagged slice", "not flagged") for y in tr["y"]]
     assert drawn and all("plan=" in y and " &amp; " in y for y in drawn)
@@ -300,7 +342,8 @@ def test_markup_in_values_is_shown_as_text():
 
     df = random_table(n=2000, seed=8, effect=0.4)
     df["region"] = df["region"].replace({"r2": "<b>bold</b>", "r1": '<a href="javascript:alert(1)">click</a>'})
-    at = upload(app().run(), "markup.csv", df)
+    at = open_charts(upload(app().run(), "markup.csv", df))
+    assert {"top_chart", "heatmap", "noise"} <= set(charts_by_key(at))
     seen = []
     for c in at.get("plotly_chart"):
         texts = list(_strings(json.loads(c.proto.spec)))
@@ -310,6 +353,74 @@ def test_markup_in_values_is_shown_as_text():
 
 
 # ----------------------------------------------------------------------------- several sessions (issue 14, 3)
+def _arr(v):
+    """A Plotly array from a figure's JSON (plain list, or typed array sent as base64)."""
+    import base64
+
+    if isinstance(v, dict) and "bdata" in v:
+        return np.frombuffer(base64.b64decode(v["bdata"]), dtype=v["dtype"])
+    return np.asarray(v)
+
+
+def test_first_view_draws_no_chart_and_opened_charts_follow_the_result(demo_df):
+    """Charts are drawn only in opened sections; once open, they are built from the result the
+    tables around them show, and follow it when the settings change."""
+    from audit.faces.charts import text
+
+    at = app().run()
+    assert len(at.get("plotly_chart")) == 0
+    assert {e.label for e in at.expander} >= {"Chart: the worst slices shown, with their intervals and the rest's value",
+                                              "Chart: the metric for every pair of values of two attributes",
+                                              "Chart: each tested slice against the band of chance"}
+    assert not [c for c in at.code]                     # the command line too waits for its section
+    open_charts(at)
+    w(at, "selectbox", "metric").set_value("recall")
+    submit(at)                                          # sections stay open; their charts follow the new result
+    exp = audit.run(demo_df, label="delinquent", score="p_delinquent", metric="recall")
+    drawn = charts_by_key(at)
+    shown = ranked_table(at)
+    want = {f"#{int(r)} {text(sl)}": v for r, sl, v in shown[["rank", "slice", "recall"]].head(15).itertuples(index=False)}
+    got = {y: x for tr in drawn["top_chart"]["data"] if tr["name"] in ("flagged slice", "not flagged")
+           for y, x in zip(tr["y"], _arr(tr["x"]))}
+    assert got == pytest.approx(want)
+    noise = [tr for tr in drawn["noise"]["data"] if tr["name"] in ("flagged", "not flagged")]
+    tested = exp.tested()
+    assert sum(len(tr["text"]) for tr in noise) == len(tested)
+    flagged = next(tr for tr in noise if tr["name"] == "flagged")
+    assert sorted(_arr(flagged["y"])) == pytest.approx(sorted(tested.loc[tested["flagged"], "metric_value"]))
+    assert "recall" in drawn["noise"]["layout"]["title"]["text"]
+    ha, hb = w(at, "selectbox", "heat_a").value, w(at, "selectbox", "heat_b").value
+    heat = drawn["heatmap"]["layout"]
+    assert {heat["xaxis"]["title"]["text"], heat["yaxis"]["title"]["text"]} == {ha, hb}
+    assert any(c.language == "bash" and "fissure audit" in c.value and "--metric recall" in c.value
+               for c in (open_cli(at).code))
+
+
+def open_cli(at):
+    at.session_state["cli_open"] = True
+    at.run()
+    assert not at.exception
+    return at
+
+
+def test_fairness_chart_section_draws_the_groups_in_the_table(demo_df):
+    at = app().run()
+    w(at, "multiselect", "protected").set_value(["sex", "age_band"])
+    w(at, "selectbox", "favorable").set_value("0")
+    submit(at)
+    assert not [c for c in at.get("plotly_chart") if c.key in ("fair_sel", "fair_eo")]
+    open_charts(at)
+    w(at, "selectbox", "fair_attr").set_value("age_band").run()
+    t = next(d for d in at.dataframe if "impact_ratio" in d.value.columns).value
+    drawn = charts_by_key(at)
+    bars = drawn["fair_sel"]["data"][0]
+    np.testing.assert_allclose(_arr(bars["y"]), t["selection_rate"].to_numpy())
+    assert [x.split(" (")[0] for x in bars["x"]] == t["group"].tolist()
+    exp = audit.run(demo_df, label="delinquent", score="p_delinquent", protected=["sex", "age_band"], favorable="0")
+    g = exp.fairness.groups
+    np.testing.assert_allclose(_arr(drawn["fair_eo"]["data"][0]["y"]), g.loc[g["attribute"] == "age_band", "tpr"])
+
+
 def test_upload_parsed_once_and_report_built_only_on_request():
     from ui import memo
 
@@ -495,19 +606,19 @@ def test_three_classes_end_to_end():
     pred = df[["p_approve", "p_decline", "p_refer"]].to_numpy().argmax(axis=1)
     cm = confusion_matrix(df["desk"], np.array(["approve", "decline", "refer"])[pred],
                           labels=["approve", "decline", "refer"])
-    spec = next(json.loads(c.proto.spec) for c in at.get("plotly_chart") if c.key == "confusion_all")
-    shown = [[int(cell.split("</b>")[0].replace("<b>", "").replace(",", "")) for cell in row]
-             for row in spec["data"][0]["text"]]
-    assert shown == cm.tolist()
+    assert confusion_counts(at, "Confusion matrix, all rows") == cm.tolist()
     # The planted slice: pick it, see its K x K counts and the classes that drive it.
     w(at, "selectbox", "slice_pick").set_value("channel=partner").run()
     assert not at.exception
-    spec = next(json.loads(c.proto.spec) for c in at.get("plotly_chart") if c.key == "cm_slice")
     part = df[df["channel"] == "partner"]
     cm_s = confusion_matrix(part["desk"], np.array(["approve", "decline", "refer"])[pred[df["channel"] == "partner"]],
                             labels=["approve", "decline", "refer"])
-    assert [[int(c.split("</b>")[0].replace("<b>", "").replace(",", "")) for c in row]
-            for row in spec["data"][0]["text"]] == cm_s.tolist()
+    assert confusion_counts(at, f"In the slice (n={len(part):,})") == cm_s.tolist()
+    assert confusion_counts(at, f"In the rest (n={len(df) - len(part):,})") == (cm - cm_s).tolist()
+    # The per-class chart, once its section is opened, is drawn for the picked slice.
+    open_charts(at)
+    bars = charts_by_key(at)["class_bars"]
+    assert "channel=partner" in json.dumps(bars)
     drivers = next(d.value for d in at.dataframe if "gap" in d.value.columns)
     pd.testing.assert_frame_equal(drivers.reset_index(drop=True), class_drivers(exp, "channel=partner"),
                                   check_dtype=False)

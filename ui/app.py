@@ -28,13 +28,12 @@ if ROOT not in sys.path:
 
 from audit.engine import ALL, run  # noqa: E402
 from audit.errors import AuditInputError  # noqa: E402
-from audit.faces import charts  # noqa: E402
 from audit.faces.export import fairness_csv, slices_csv, summary_json  # noqa: E402
 from audit.stats.correct import CORRECTIONS  # noqa: E402
 from audit.stats.intervals import INTERVALS  # noqa: E402
 from audit.stats.measure import METRICS  # noqa: E402
 from audit.stats.methods import metric_for  # noqa: E402
-from ui import classes_view, fairness_view, findings_view, folder_view, intake  # noqa: E402
+from ui import classes_view, fairness_view, findings_view, folder_view, intake, sections  # noqa: E402
 from ui.memo import REPORTS, RESULTS  # noqa: E402
 from ui.wording import WIDGETS, check_reference, fmt, md, or_nan, page_error, parse_reference  # noqa: E402
 
@@ -54,11 +53,9 @@ MULTI_METRICS = ["error_rate", "accuracy", "macro_f1", "log_loss", "brier"]
 LARGER = """The upload limit keeps this page responsive for everyone using it. For a larger table, run the same
 audit from the command line on a machine that can read the file; memory stays bounded by the chunk:
 
-```
-fissure audit predictions.csv --label LABEL --score PROB --chunk-rows 1000000 --out run1
-fissure audit parts/ --label LABEL --score PROB --out run1                     # a folder of Parquet files
-fissure audit parts/ --label LABEL --score PROB --engine dask --scheduler tcp://HOST:8786 --out run1
-```
+- one file, read in chunks: `fissure audit predictions.csv --label LABEL --score PROB --chunk-rows 1000000 --out run1`
+- a folder of Parquet files: `fissure audit parts/ --label LABEL --score PROB --out run1`
+- on a Dask cluster: `fissure audit parts/ --label LABEL --score PROB --engine dask --scheduler tcp://HOST:8786 --out run1`
 
 Then type the output folder (`run1`) below to browse its findings, ranked slices and fairness flags here,
 read from its `slices.csv` and `summary.json` without recomputing anything."""
@@ -465,7 +462,7 @@ else:
                      f"{lvl}% high": or_nan(o.get(k + "_high"))})
     left.dataframe(pd.DataFrame(rows), hide_index=True, width="stretch", height=35 * (len(rows) + 1) + 3,
                    column_config={"value": NUM4, f"{lvl}% low": NUM4, f"{lvl}% high": NUM4})
-    right.plotly_chart(charts.confusion(o, result.classes, title="Confusion matrix, all rows"), key="confusion_all")
+    sections.show_confusion(right, sections.confusion_table(o, result.classes), "Confusion matrix, all rows")
 if skipped:
     st.caption("Chosen but not sliced by the audit: " + "; ".join(f"**{md(k)}**: {md(v)}" for k, v in skipped.items()))
 
@@ -511,7 +508,12 @@ with tab_ranked:
                                             "q_value": st.column_config.NumberColumn("adjusted p", format="%.2e")})
     t = _tick("ranked table", t)
     if len(view):
-        st.plotly_chart(charts.top_slices(result, k=15, ranked=view), key="top_chart")
+        box = sections.chart_section(st, "Chart: the worst slices shown, with their intervals and the rest's value",
+                                     "chart_top")
+        if box is not None:
+            from audit.faces import charts
+
+            box.plotly_chart(charts.top_slices(result, k=15, ranked=view), key="top_chart")
 
 # ----------------------------------------------------------------------------- one slice
 st.header("5 · Inspect one slice")
@@ -532,8 +534,8 @@ else:
         st.markdown(f"**{md(chosen)}** · n = **{int(s['n']):,}** rows · errors {int(s['errors']):,} · "
                     f"tp {int(s['tp']):,} · fp {int(s['fp']):,} · fn {int(s['fn']):,} · tn {int(s['tn']):,}")
         a, b = st.columns(2)
-        a.plotly_chart(charts.confusion(s, result.classes, title=f"In the slice (n={int(s['n']):,})"), key="cm_slice")
-        b.plotly_chart(charts.confusion(rest, result.classes, title=f"In the rest (n={rest['n']:,})"), key="cm_rest")
+        sections.show_confusion(a, sections.confusion_table(s, result.classes), f"In the slice (n={int(s['n']):,})")
+        sections.show_confusion(b, sections.confusion_table(rest, result.classes), f"In the rest (n={rest['n']:,})")
         comp_df = result.compare(chosen)
         st.markdown(f"Status: **{md(s['status'])}** {md(s['status_reason'])}  ·  this slice holds "
                     f"**{comp_df.attrs['share_of_errors']:.1%}** of all errors and {s['share']:.1%} of all rows.")
@@ -561,12 +563,18 @@ else:
 # ----------------------------------------------------------------------------- two attributes
 if len(attr_names) >= 2 and result.config.max_order >= 2:
     st.header("6 · Two attributes at once")
-    pair = charts.worst_pair(result) or (attr_names[0], attr_names[1])
-    h1, h2 = st.columns(2)
-    ha = choose(h1, "Rows", attr_names, pair[0], "heat_a", run_id)
-    hb_opts = [x for x in attr_names if x != ha]
-    hb = choose(h2, "Columns", hb_opts, pair[1], "heat_b", run_id, ha)
-    st.plotly_chart(charts.pair_heatmap(result, ha, hb), key="heatmap")
+    st.caption("Every pair of values of two attributes, as a grid coloured by the audited metric (the pair slices of "
+               "the ranked list above). Opens on the pair of attributes with the worst-ranked pair slice.")
+    box = sections.chart_section(st, "Chart: the metric for every pair of values of two attributes", "chart_pair")
+    if box is not None:
+        from audit.faces import charts
+
+        pair = charts.worst_pair(result) or (attr_names[0], attr_names[1])
+        h1, h2 = box.columns(2)
+        ha = choose(h1, "Rows", attr_names, pair[0], "heat_a", run_id)
+        hb_opts = [x for x in attr_names if x != ha]
+        hb = choose(h2, "Columns", hb_opts, pair[1], "heat_b", run_id, ha)
+        box.plotly_chart(charts.pair_heatmap(result, ha, hb), key="heatmap")
 
 # ----------------------------------------------------------------------------- noise
 st.header("7 · Where noise ends")
@@ -574,7 +582,11 @@ st.caption("Each dot is a tested slice. The shaded band is where a slice that be
            "land by chance alone, before allowing for the number of slices tested; small slices need a bigger gap. "
            "A slice is flagged only when it does worse than the rest and its test survives the correction for "
            "testing every slice, so dots just outside the band can stay unflagged.")
-st.plotly_chart(charts.noise_band(result), key="noise")
+box = sections.chart_section(st, "Chart: each tested slice against the band of chance", "chart_noise")
+if box is not None:
+    from audit.faces import charts
+
+    box.plotly_chart(charts.noise_band(result), key="noise")
 
 # ----------------------------------------------------------------------------- fairness
 if result.fairness is not None:
@@ -612,9 +624,11 @@ if st.checkbox("Also prepare the report as PDF (needs Chromium on the server)", 
         st.warning(why)
     else:
         st.download_button("report.pdf", pdf, "report.pdf", "application/pdf", key="dl_pdf")
-st.markdown("The same audit from the command line, for the whole table however large (add `--chunk-rows 1000000` "
-            "to bound memory, or `--engine dask --scheduler ADDRESS` for a cluster):")
-st.code(cli_command(settings, name), language="bash")
+box = st.expander("The same audit from the command line, for the whole table however large", key="cli_open",
+                  on_change="rerun")
+if box.open:
+    box.markdown("Add `--chunk-rows 1000000` to bound memory, or `--engine dask --scheduler ADDRESS` for a cluster:")
+    box.code(cli_command(settings, name), language="bash")
 st.caption(CAUTION)
 _tick("rest of the page", t)
 TIMINGS["total"] = time.perf_counter() - T0

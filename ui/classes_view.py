@@ -10,8 +10,8 @@ import numpy as np
 import pandas as pd
 
 from audit.engine import ALL
-from audit.faces import charts
 from audit.faces.prose import class_drivers, prediction_words
+from ui.sections import chart_section, class_confusion_table, show_confusion
 from ui.wording import md, or_nan
 
 AVERAGES = ["accuracy", "error_rate", "macro_f1", "micro_f1", "weighted_f1", "macro_precision", "macro_recall",
@@ -55,11 +55,13 @@ def overview(result, st, *, lvl: int) -> None:
                                   "f1": num("F1", format="%.4f")})
     left.caption("Averages (macro: mean over classes; micro: pooled counts; weighted: by support) and, below them, "
                  "each class one-vs-rest.")
-    right.plotly_chart(charts.class_confusion(result.overall["confusion"], classes,
-                                              title="Confusion matrix, all rows"), key="confusion_all")
+    show_confusion(right, class_confusion_table(result.overall["confusion"], classes), "Confusion matrix, all rows")
+    right.caption("Rows: true class; columns: predicted class; each cell's share is of its row.")
 
 
 def rest_confusion(result, name: str) -> list[list[int]]:
+    from audit.faces import charts
+
     whole = np.asarray(charts.slice_confusion(result, ALL))
     return (whole - np.asarray(charts.slice_confusion(result, name))).tolist()
 
@@ -70,12 +72,13 @@ def slice_panel(result, name: str, st) -> None:
     classes = [str(c) for c in result.classes]
     st.markdown(f"**{md(name)}** · n = **{int(s['n']):,}** rows · errors {int(s['errors']):,} · "
                 + " · ".join(f"{md(c)} {int(s['support_' + c]):,}" for c in classes))
+    from audit.faces import charts
+
     a, b = st.columns(2)
-    a.plotly_chart(charts.class_confusion(charts.slice_confusion(result, name), classes,
-                                          title=f"In the slice (n={int(s['n']):,})"), key="cm_slice")
+    show_confusion(a, class_confusion_table(charts.slice_confusion(result, name), classes),
+                   f"In the slice (n={int(s['n']):,})")
     rest = rest_confusion(result, name)
-    b.plotly_chart(charts.class_confusion(rest, classes, title=f"In the rest (n={int(np.sum(rest)):,})"),
-                   key="cm_rest")
+    show_confusion(b, class_confusion_table(rest, classes), f"In the rest (n={int(np.sum(rest)):,})")
     d = class_drivers(result, name)
     if len(d):
         st.markdown("Classes that drive this slice (recall and precision below the rest's, largest gap first):")
@@ -84,4 +87,6 @@ def slice_panel(result, name: str, st) -> None:
                                     for c in ("slice_value", "rest_value", "gap")})
     else:
         st.caption("No class's recall or precision is lower in this slice than in the rest of the rows.")
-    st.plotly_chart(charts.per_class_bars(result, slice_name=name), key="class_bars")
+    box = chart_section(st, "Chart: each class's precision, recall and F1 in the slice", "chart_classes")
+    if box is not None:
+        box.plotly_chart(charts.per_class_bars(result, slice_name=name), key="class_bars")

@@ -7,9 +7,9 @@ from __future__ import annotations
 
 import hashlib
 
-from audit.faces import charts
 from audit.faces.prose import fairness_findings, finding_text
 from audit.stats.fairness import FairnessResult
+from ui.sections import chart_section
 from ui.wording import md
 
 FAIR_COLUMNS = ["group", "n", "share", "selection_rate", "impact_ratio", "below_four_fifths", "selection_q", "tpr",
@@ -89,8 +89,14 @@ def show(fr: FairnessResult, st, *, key: str = "", result=None) -> None:
     attrs = list(dict.fromkeys(fr.groups["attribute"]))
     digest = hashlib.blake2b(repr((key, attrs)).encode(), digest_size=5).hexdigest()
     pick = st.selectbox("Protected attribute or intersection", attrs, key=f"fair_attr-{digest}")
-    a, b = st.columns(2)
-    a.plotly_chart(charts.selection_rates(fr.groups, pick), key="fair_sel")
-    b.plotly_chart(charts.error_rate_balance(fr.groups, pick), key="fair_eo")
     t = table(fr.groups, pick)
     st.dataframe(t, hide_index=True, width="stretch", column_config=column_config(st, t.columns))
+    # A fixed label: a label that changed with the pick would be a new widget, closed again.
+    box = chart_section(st, "Charts: selection rates and error-rate balance of the attribute picked above",
+                        "chart_fairness")
+    if box is not None:  # drawn from the same groups as the table above
+        from audit.faces import charts
+
+        a, b = box.columns(2)
+        a.plotly_chart(charts.selection_rates(fr.groups, pick), key="fair_sel")
+        b.plotly_chart(charts.error_rate_balance(fr.groups, pick), key="fair_eo")
