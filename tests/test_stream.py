@@ -139,3 +139,35 @@ def test_chunked_input_errors_name_the_global_row(tmp_path):
     with pytest.raises(audit.AuditInputError, match=r"probability column 'p' has value 1.7 at data row 51"):
         audit.run(str(path), label="y", score="p", chunk_rows=7)
     assert not os.path.exists(tmp_path / "out")
+
+
+@pytest.mark.parametrize("kind", ["csv", "parquet", "dir", "glob"])
+def test_the_digest_from_the_background_thread_is_sha256_of_the_files(files, kind):
+    import glob
+    import hashlib
+
+    from audit.core.sources import open_source
+
+    # Reference: hashlib.sha256 over the whole file, or the files of a folder or glob one after
+    # the other in sorted order (the order they are read as one table).
+    path = files[kind]
+    names = sorted(glob.glob(path)) if kind == "glob" else (
+        sorted(os.path.join(path, f) for f in os.listdir(path)) if kind == "dir" else [path])
+    h = hashlib.sha256()
+    for f in names:
+        with open(f, "rb") as fh:
+            h.update(fh.read())
+    src = open_source(path, chunk_rows=1000)
+    assert src._pending is not None  # computing beside the passes, not before them
+    res = audit.run(path, chunk_rows=1000, **SETTINGS)
+    assert res.source.sha256 == h.hexdigest() == src.info.sha256
+    assert res.source.n_bytes == sum(os.path.getsize(f) for f in names)
+
+
+def test_a_digest_that_cannot_be_read_is_one_line(tmp_path):
+    from audit.core.sources import _Digest
+
+    d = _Digest([str(tmp_path / "gone.parquet")])  # removed between listing and reading
+    with pytest.raises(audit.AuditInputError, match=r"^input file 'gone.parquet' could not be read to the end for "
+                                                    r"its SHA-256 \(FileNotFoundError\)$"):
+        d.result()

@@ -10,6 +10,7 @@ from __future__ import annotations
 import glob
 import hashlib
 import os
+import threading
 from dataclasses import dataclass
 from typing import Any, Iterator
 
@@ -28,12 +29,28 @@ class SourceInfo:
 
 
 class Source:
-    """A table read as chunks: ``chunks()`` yields ``(first data row, DataFrame)``."""
+    """A table read as chunks: ``chunks()`` yields ``(first data row, DataFrame)``.
 
-    info: SourceInfo
+    ``info`` says where the table came from; for files its SHA-256 is computed in a background
+    thread (:class:`_Digest`) and ``info`` waits for it, so read it after the passes."""
+
     chunked: bool = True
     #: Rows the source holds when known before reading (Parquet metadata), for progress.
     expected_rows: int | None = None
+    _info: SourceInfo | None = None
+    _pending: "tuple[str, _Digest] | None" = None
+
+    @property
+    def info(self) -> SourceInfo:
+        if self._pending is not None:
+            name, pending = self._pending
+            digest, size = pending.result()
+            self._info, self._pending = SourceInfo(name, digest, size), None
+        return self._info
+
+    @info.setter
+    def info(self, value: SourceInfo) -> None:
+        self._info, self._pending = value, None
 
     def chunks(self, columns: list[str] | None = None) -> Iterator[tuple[int, pd.DataFrame]]:  # pragma: no cover
         """``(first data row, DataFrame)`` per chunk; ``columns`` may limit what is read (a hint)."""
@@ -62,6 +79,43 @@ def _digest(paths: list[str]) -> tuple[str, int]:
     return h.hexdigest(), size
 
 
+class _Digest:
+    """SHA-256 of files computed in a background thread from the moment a source is opened.
+
+    The digest is not a pass of its own: the thread reads the files while the first pass
+    runs (both release the GIL: file reads, ``hashlib`` on blocks over 2 KiB, pyarrow, the
+    compiled kernels) and at a lower priority on Linux, so it takes the cycles the passes leave
+    idle; the first pass then finds the file in the page cache. The digest is identical to
+    ``hashlib.sha256`` of the files' bytes, one after the other.
+    """
+
+    def __init__(self, paths: list[str]):
+        self.paths = list(paths)
+        self._result: tuple[str, int] | None = None
+        self._error: BaseException | None = None
+        self._thread = threading.Thread(target=self._run, name="fissure-sha256", daemon=True)
+        self._thread.start()
+
+    def _run(self) -> None:
+        try:
+            os.setpriority(os.PRIO_PROCESS, threading.get_native_id(), 10)  # this thread only (Linux)
+        except (AttributeError, OSError):  # pragma: no cover - other systems: normal priority
+            pass
+        try:
+            self._result = _digest(self.paths)
+        except BaseException as exc:  # reported by result(), in the caller's thread
+            self._error = exc
+
+    def result(self) -> tuple[str, int]:
+        """``(hex digest, bytes read)``; waits for the thread."""
+        self._thread.join()
+        if self._error is not None:
+            name = shown(os.path.basename(self.paths[0])) if len(self.paths) == 1 else f"{len(self.paths)} input files"
+            raise AuditInputError(f"{'input file ' if len(self.paths) == 1 else ''}{name} could not be read to the "
+                                  f"end for its SHA-256 ({type(self._error).__name__})") from None
+        return self._result
+
+
 def _expand(path: str, exts: tuple[str, ...]) -> list[str]:
     if any(ch in path for ch in "*?["):
         files = sorted(glob.glob(path))
@@ -84,8 +138,7 @@ class ParquetSource(Source):
     def __init__(self, path: str, chunk_rows: int):
         self.files = _expand(path, (".parquet", ".pq"))
         self.chunk_rows = chunk_rows
-        digest, size = _digest(self.files)
-        self.info = SourceInfo(os.path.basename(path.rstrip("/")) or path, digest, size)
+        self._pending = (os.path.basename(path.rstrip("/")) or path, _Digest(self.files))
         self.expected_rows = None
 
     def parts(self) -> list[tuple[str, list[int], int, int]]:
@@ -159,8 +212,7 @@ class CsvSource(Source):
         codec = _check_codec(encoding)
         self.encoding = codec.name if codec is not None else "utf-8-sig"
         self._seps = {f: self._inspect(f) for f in self.files}
-        digest, size = _digest(self.files)
-        self.info = SourceInfo(os.path.basename(path.rstrip("/")) or path, digest, size)
+        self._pending = (os.path.basename(path.rstrip("/")) or path, _Digest(self.files))
         self._dtypes: dict[str, Any] | None = None
 
     def _inspect(self, f: str) -> str:
