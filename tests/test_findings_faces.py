@@ -25,6 +25,10 @@ from audit.faces.cli import main as cli_main
 
 PLANTED_PAIR = "age_band=18-24 & employment_type=gig"
 PLANTED_SINGLE = "channel=broker"
+PLANTED_MISSING = "income_band=(missing)"
+# demo/README.md: by error rate the three planted weaknesses lead, then one unplanted finding it explains
+PLANTED = [PLANTED_PAIR, PLANTED_SINGLE, PLANTED_MISSING]
+DEMO_FINDINGS = PLANTED + ["channel=web & tenure_years=[2, 3.4)"]
 DEMO = ["--label", "delinquent", "--score", "p_delinquent", "--protected", "sex,age_band", "--favorable", "0"]
 
 
@@ -91,7 +95,9 @@ def test_terminal_lists_the_planted_findings_first_with_their_echo_counts(pairs_
     assert items[1].endswith(f", {counts[PLANTED_SINGLE]} echo(es)]")
     n_flagged = int((sl["flagged"] == "true").sum())
     n_find = int((sl["finding"] == "true").sum())
-    assert len(items) == n_find == 2  # the demo's README: two findings by error rate
+    assert items[2].startswith(f"  3. {PLANTED_MISSING}  [flag rank ")
+    # the demo's README: four findings by error rate, the three planted ones first
+    assert len(items) == n_find == 4
     assert sum(counts.values()) == n_flagged - n_find  # every other flagged slice is folded under one
     assert f"{n_flagged} flagged at bh 0.05 ({n_find} finding(s), {n_flagged - n_find} echo(es))" in stdout
     # the first echoes named under the pair are its echoes of best flag rank
@@ -109,8 +115,8 @@ def test_summary_json_has_findings_with_echoes_and_flag_ranks(pairs_run):
     jsonschema.validate(summary, schema)  # JSON Schema draft 2020-12
     sl = _csv(work / "out" / "slices.csv")
     found = summary["findings"]
-    assert [f["slice"] for f in found] == [PLANTED_PAIR, PLANTED_SINGLE]
-    assert [f["finding_rank"] for f in found] == [1, 2]
+    assert [f["slice"] for f in found] == DEMO_FINDINGS
+    assert [f["finding_rank"] for f in found] == [1, 2, 3, 4]
     for f in found:
         mine = sl[sl["echo_of"] == f["slice"]]
         assert f["echoes"] == len(mine) == len(f["echo_slices"])
@@ -119,7 +125,7 @@ def test_summary_json_has_findings_with_echoes_and_flag_ranks(pairs_run):
         assert ranks == sorted(ranks)  # echoes by flag rank
     flagged = summary["flagged"]
     assert [x["flag_rank"] for x in flagged] == list(range(1, len(flagged) + 1))  # no gaps
-    assert summary["slices"]["findings"] == 2 and summary["slices"]["echoes"] == len(flagged) - 2
+    assert summary["slices"]["findings"] == 4 and summary["slices"]["echoes"] == len(flagged) - 4
     for x in flagged:
         assert x["diff_low_adj"] <= x["diff_low"] <= x["diff"] <= x["diff_high"] <= x["diff_high_adj"]
         assert x["finding"] == (x["echo_of"] is None)
@@ -143,8 +149,8 @@ def test_report_leads_with_findings_and_folds_their_echoes(pairs_run):
     ol = opening[opening.index("<ol class='findings'"):]
     ol = ol[:ol.index("</ol>")]
     items = ol.split("<li>")[1:]
-    assert [_words(x).split(" (")[0] for x in items] == [PLANTED_PAIR, PLANTED_SINGLE]
-    for x, name in zip(items, (PLANTED_PAIR, PLANTED_SINGLE)):
+    assert [_words(x).split(" (")[0] for x in items] == DEMO_FINDINGS
+    for x, name in zip(items, PLANTED):
         assert f"<summary>{counts[name]} echo(es) folded under it</summary>" in x
     # section 5: the findings table comes first, then each finding's echoes folded under it
     find = _section(raw, "findings", "fairness")
@@ -153,7 +159,8 @@ def test_report_leads_with_findings_and_folds_their_echoes(pairs_run):
     rows = [_words(r) for r in table.split("<tr>")[2:]]
     assert rows[0].startswith(f"1 1 {PLANTED_PAIR} ") and rows[0].endswith(f" {counts[PLANTED_PAIR]}")
     assert rows[1].startswith(f"2 ") and f" {PLANTED_SINGLE} " in rows[1]
-    for i, name in enumerate((PLANTED_PAIR, PLANTED_SINGLE), start=1):
+    assert rows[2].startswith(f"3 ") and f" {PLANTED_MISSING} " in rows[2]
+    for i, name in enumerate(PLANTED, start=1):
         block = find[find.index(f"<details class='fold' id='echoes-{i}'>"):]
         block = block[:block.index("</details>")]
         assert f"{counts[name]} echo(es) folded under it" in _words(block)
@@ -167,7 +174,8 @@ def test_report_leads_with_findings_and_folds_their_echoes(pairs_run):
     # one decision per finding, its echoes named under it
     sign = _words(_section(raw, "signoff", "reproduce"))
     assert "S1 slice finding " + PLANTED_PAIR in sign and "S2 slice finding " + PLANTED_SINGLE in sign
-    assert "S3 " not in sign
+    assert "S3 slice finding " + PLANTED_MISSING in sign and "S4 slice finding " + DEMO_FINDINGS[3] in sign
+    assert "S5 " not in sign
     assert f"Decided with it, its {counts[PLANTED_PAIR]} echo(es): " in sign
 
 
