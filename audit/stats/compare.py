@@ -112,9 +112,11 @@ def two_proportion(k1, n1, k2, n2):
     small = defined & (expected < MIN_EXPECTED) & (se > 0)
     if small.any():
         p[small] = fisher_two_sided(k1[small], n1[small], K[small], N[small])
-    method = np.where(small, "fisher", "z").astype(object)
     p = np.where(defined, p, np.nan)
-    method = np.where(defined, method, "")
+    method = np.empty(p.shape, dtype=object)  # one string object per method, not one per slice
+    method.fill("z")
+    method[small] = "fisher"
+    method[~defined] = ""
     return p, method
 
 

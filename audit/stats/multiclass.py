@@ -23,7 +23,7 @@ import numpy as np
 
 from .compare import cohens_d, cohens_h, two_proportion, welch_p
 from .intervals import _z, f1_interval, mean_interval, mover_difference, proportion_interval, welch_difference
-from .measure import ratio
+from .measure import ratio, same_text
 
 
 def cube(counts: np.ndarray, k: int) -> np.ndarray:
@@ -174,7 +174,7 @@ def metric_block(cfg, metric, counts, rest, sums, rsums, classes):
 
         with np.errstate(invalid="ignore", divide="ignore"):
             p = np.where(se > 0, 2 * _normal_sf(np.abs(diff) / se), np.where(diff == 0, 1.0, np.nan))
-        test = np.full(len(n), "delta", dtype=object)
+        test = same_text(len(n), "delta")
         return _block(val, lo1, hi1, rval, diff, diff - z * se, diff + z * se, cohens_h(val, rval), p, test, n, rn)
     else:  # mean losses
         j = 0 if name == "log_loss" else 2
@@ -184,7 +184,7 @@ def metric_block(cfg, metric, counts, rest, sums, rsums, classes):
                                                               rsums[:, j + 1], level=lvl)
         p = welch_p(diff, se, df)
         return _block(val, lo1, hi1, rval, diff, dlo, dhi, cohens_d(diff, var1, var2), p,
-                      np.full(len(n), "welch", dtype=object), n, rn)
+                      same_text(len(n), "welch"), n, rn)
     val, rval = ratio(k1, d1), ratio(k2, d2)
     lo1, hi1 = proportion_interval(k1, d1, method=meth, level=lvl)
     lo2, hi2 = proportion_interval(k2, d2, method=meth, level=lvl)

@@ -20,30 +20,28 @@ from ..settings import AuditConfig
 from .compare import cohens_d, cohens_h, two_proportion, welch_p
 from .correct import adjust
 from .intervals import f1_interval, mean_interval, mover_difference, proportion_interval, welch_difference
-from .measure import METRICS, RATE_COLUMNS, RATES, count_frame, metric_value, metric_values
+from .measure import METRICS, RATE_COLUMNS, RATES, count_frame, metric_value, metric_values, same_text
 from .methods import COUNT_WORDS, metric_for
 from .findings import explain, selection_level, slice_keys
 from .rank import badness, flag_and_rank, rank_among
 from .result import ALL, AuditResult
 
 
-def _names(fam: tuple[int, ...], attrs: Sequence[AttributeCoding]) -> tuple[list, list, list, list, list]:
-    """Slice names and per-position attribute/value columns for one family, in code order."""
+def _names(fam: tuple[int, ...], attrs: Sequence[AttributeCoding]) -> tuple[list, list[list]]:
+    """Slice names and each position's values for one family, in code order."""
     if not fam:
-        return [ALL], [""], [""], [""], [""]
+        return [ALL], []
     if len(fam) == 1:
         a = attrs[fam[0]]
         vals = list(a.levels)
-        return [f"{a.name}={v}" for v in vals], [a.name] * len(vals), vals, [""] * len(vals), [""] * len(vals)
+        return [f"{a.name}={v}" for v in vals], [vals]
     a, b = attrs[fam[0]], attrs[fam[1]]
-    size = a.cardinality * b.cardinality
     names = [f"{a.name}={x} & {b.name}={y}" for x in a.levels for y in b.levels]
-    va = [x for x in a.levels for _ in b.levels]
-    return names, [a.name] * size, va, [b.name] * size, list(b.levels) * a.cardinality
+    return names, [[x for x in a.levels for _ in b.levels], list(b.levels) * a.cardinality]
 
 
-def _names_at(fam: tuple[int, ...], attrs: Sequence[AttributeCoding], pos: np.ndarray) -> list[list]:
-    """Slice names and attribute/value columns (three positions) of a sparsely stored family."""
+def _names_at(fam: tuple[int, ...], attrs: Sequence[AttributeCoding], pos: np.ndarray) -> tuple[np.ndarray, list]:
+    """Slice names and each position's values (object arrays) of a sparsely stored family."""
     cards = [attrs[a].cardinality for a in fam]
     codes, rest = [], np.asarray(pos, dtype=np.int64)
     for c in reversed(cards):  # mixed radix, first attribute most significant
@@ -52,17 +50,33 @@ def _names_at(fam: tuple[int, ...], attrs: Sequence[AttributeCoding], pos: np.nd
     codes = codes[::-1]
     # Object arrays indexed by code: the concatenation runs in numpy's loop, not a Python generator.
     levels = [np.array(attrs[a].levels, dtype=object) for a in fam]
-    vals = [lv[cs].tolist() for lv, cs in zip(levels, codes)]
+    vals = [lv[cs] for lv, cs in zip(levels, codes)]
     parts = [np.array([f"{' & ' if j else ''}{attrs[a].name}={x}" for x in attrs[a].levels], dtype=object)[cs]
              for j, (a, cs) in enumerate(zip(fam, codes))]
     joined = parts[0]
     for part in parts[1:]:
         joined = joined + part
-    names = joined.tolist()
-    out = [names]
-    for j in range(3):
-        out += [[attrs[fam[j]].name] * len(pos), vals[j]] if j < len(fam) else [[""] * len(pos), [""] * len(pos)]
-    return out
+    return joined, vals
+
+
+def _text_columns(tl: Tally, keep_fam: list[int], attrs: Sequence[AttributeCoding]) -> list[np.ndarray]:
+    """The slice name, then attribute and value at positions 1-3 ('' past the family's order), of
+    every slice of the kept families, as object arrays filled in place family by family."""
+    sizes = [int(tl.offsets[q + 1] - tl.offsets[q]) for q in keep_fam]
+    total = sum(sizes)
+    names = np.empty(total, dtype=object)
+    attr_cols = [same_text(total, "") for _ in range(3)]
+    val_cols = [same_text(total, "") for _ in range(3)]
+    lo = 0
+    for q, size in zip(keep_fam, sizes):
+        fam, hi = tl.families[q], lo + size
+        nm, vals = _names_at(fam, attrs, tl.positions(q)) if q in tl.slots else _names(fam, attrs)
+        names[lo:hi] = nm
+        for j, a in enumerate(fam):
+            attr_cols[j][lo:hi] = attrs[a].name
+            val_cols[j][lo:hi] = vals[j]
+        lo = hi
+    return [names, attr_cols[0], val_cols[0], attr_cols[1], val_cols[1], attr_cols[2], val_cols[2]]
 
 
 def _metric_block(cfg: AuditConfig, c: dict, rc: dict, v: dict, rv: dict, sums, rsums) -> dict[str, np.ndarray]:
@@ -95,7 +109,7 @@ def _metric_block(cfg: AuditConfig, c: dict, rc: dict, v: dict, rv: dict, sums, 
         diff, dlo, dhi, se, df, var1, var2 = welch_difference(
             c["n"], sums[:, j], sums[:, j + 1], rc["n"], rsums[:, j], rsums[:, j + 1], level=lvl)
         p = welch_p(diff, se, df)
-        test = np.full(n1, "welch", dtype=object)
+        test = same_text(n1, "welch")
         eff = cohens_d(diff, var1, var2)
         support, rsupport = c["n"], rc["n"]
     return {"metric_value": val, "metric_low": lo1, "metric_high": hi1, "rest_value": rval,
@@ -195,18 +209,9 @@ def summarize(tl: Tally, fitted: Fitted, cfg: AuditConfig, *, source: SourceInfo
             auc_bound = float(np.nanmax(bound)) if np.isfinite(bound).any() else 0.0
     auc = auc[rows]
     n_rows = int(counts[order == 0][0].sum())
-    names, a1, v1, a2, v2, a3, v3 = [], [], [], [], [], [], []
-    fam_row, pos_row = [], []
-    for q in keep_fam:
-        pos = tl.positions(q)
-        if q in tl.slots:
-            nm, x1, y1, x2, y2, x3, y3 = _names_at(families[q], attrs, pos)
-        else:
-            nm, x1, y1, x2, y2 = _names(families[q], attrs)
-            x3 = y3 = [""] * len(nm)
-        names += nm; a1 += x1; v1 += y1; a2 += x2; v2 += y2; a3 += x3; v3 += y3
-        fam_row.append(np.full(len(pos), q))
-        pos_row.append(pos)
+    names, a1, v1, a2, v2, a3, v3 = _text_columns(tl, keep_fam, attrs)
+    fam_row = [np.full(int(tl.offsets[q + 1] - tl.offsets[q]), q) for q in keep_fam]
+    pos_row = [tl.positions(q) for q in keep_fam]
     keep = (counts.sum(axis=1) > 0) | (order == 0)
     idx = np.flatnonzero(keep)
     counts, order, auc = counts[idx], order[idx], auc[idx]
@@ -217,10 +222,9 @@ def summarize(tl: Tally, fitted: Fitted, cfg: AuditConfig, *, source: SourceInfo
     rsums = None if sums is None else sums[order == 0][0][None, :] - sums
     m = metric_for(cfg.metric)
     cols: dict[str, Any] = {
-        "slice": np.asarray(names, dtype=object)[idx], "order": order,
-        "attribute_1": np.asarray(a1, dtype=object)[idx], "value_1": np.asarray(v1, dtype=object)[idx],
-        "attribute_2": np.asarray(a2, dtype=object)[idx], "value_2": np.asarray(v2, dtype=object)[idx],
-        "attribute_3": np.asarray(a3, dtype=object)[idx], "value_3": np.asarray(v3, dtype=object)[idx],
+        "slice": names[idx], "order": order,
+        "attribute_1": a1[idx], "value_1": v1[idx], "attribute_2": a2[idx], "value_2": v2[idx],
+        "attribute_3": a3[idx], "value_3": v3[idx],
     }
     def contrast(ca, cb, sa, sb, *, level: float | None = None) -> dict:
         """The audited metric's comparison of slices ``ca`` and ``cb`` (counts and sums)."""
@@ -242,7 +246,7 @@ def summarize(tl: Tally, fitted: Fitted, cfg: AuditConfig, *, source: SourceInfo
         cols.update(multiclass.columns(counts, sums, fitted.outcomes.classes, cfg, n_rows))
     mb = contrast(counts, rest, sums, rsums)
     n_slice, rest_n = counts.sum(axis=1), rest.sum(axis=1)
-    cols["metric"] = np.full(len(idx), cfg.metric, dtype=object)
+    cols["metric"] = same_text(len(idx), cfg.metric)
     cols["rest_n"] = rest_n
     for k in ("metric_value", "metric_low", "metric_high", "rest_value", "diff", "diff_low", "diff_high",
               "effect_size"):
@@ -250,8 +254,8 @@ def summarize(tl: Tally, fitted: Fitted, cfg: AuditConfig, *, source: SourceInfo
 
     support, rsupport = mb["_support"], mb["_rsupport"]
     sup_title = COUNT_WORDS[m.denominator]
-    status = np.full(len(idx), "tested", dtype=object)
-    reason = np.full(len(idx), "", dtype=object)
+    status = same_text(len(idx), "tested")
+    reason = same_text(len(idx), "")
     ms, mms = cfg.min_support, cfg.min_metric_support
     few_rows = n_slice < ms
     few_metric = support < mms
@@ -375,7 +379,7 @@ def _roles(cols, counts, sums, rest, rsums, fam_row, pos_row, families, cards, c
     finding = np.zeros(n, dtype=bool)
     finding[ex["finding"]] = True
     names = np.asarray(cols["slice"], dtype=object)
-    by, echo = np.full(n, "", dtype=object), np.full(n, "", dtype=object)
+    by, echo = same_text(n, ""), same_text(n, "")
     for r, o in ex["explained_by"].items():
         by[r] = names[o]
     for r, o in ex["echo_of"].items():
