@@ -171,3 +171,42 @@ def test_a_digest_that_cannot_be_read_is_one_line(tmp_path):
     with pytest.raises(audit.AuditInputError, match=r"^input file 'gone.parquet' could not be read to the end for "
                                                     r"its SHA-256 \(FileNotFoundError\)$"):
         d.result()
+
+
+def test_parquet_chunks_equal_pyarrows_own_conversion(tmp_path):
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    from audit.core.sources import read_parquet_part
+
+    # Reference: pyarrow's Table.to_pandas on the same rows. Dictionary columns with missing
+    # values, a dictionary that changes from one row group to the next, integer dictionaries,
+    # plain columns between them; row groups cut into chunks, and one read in record batches.
+    rng = np.random.default_rng(7)
+    groups = []
+    for g, words in enumerate([["north", "south", "east"], ["south", "west"], ["north", "south", "east"]]):
+        n = 900
+        region = pa.DictionaryArray.from_arrays(
+            pa.array(rng.integers(0, len(words), n).astype(np.int8), mask=rng.random(n) < 0.05), pa.array(words))
+        plan = pa.DictionaryArray.from_arrays(pa.array(rng.integers(0, 3, n).astype(np.int16)), pa.array([10, 20, 30]))
+        groups.append(pa.table({"y": rng.integers(0, 2, n), "region": region, "p": rng.random(n), "plan": plan,
+                                "note": pa.array(rng.choice(["a", "b", None], n))}))
+    path = tmp_path / "t.parquet"
+    with pq.ParquetWriter(path, groups[0].schema.remove_metadata()) as w:
+        for t in groups:
+            w.write_table(t.cast(groups[0].schema))
+    whole = pq.read_table(path)
+    for chunk in (400, 900, 200):  # cut inside each row group; whole row groups; record batches (n > 2 chunks)
+        got = pd.concat([df for df in read_parquet_part(str(path), None, chunk)], ignore_index=True)
+        want = pd.concat([pq.ParquetFile(path).read_row_group(g).to_pandas() for g in range(3)], ignore_index=True)
+        pd.testing.assert_frame_equal(got, want, check_exact=True)
+        assert got["region"].isna().sum() == whole["region"].null_count
+    # chunk by chunk: the categories of each chunk are those of its own row group's dictionary
+    got = list(read_parquet_part(str(path), None, 400))
+    want = [pq.ParquetFile(path).read_row_group(g).slice(lo, 400).to_pandas() for g in range(3) for lo in (0, 400, 800)]
+    for a, b in zip(got, want, strict=True):
+        pd.testing.assert_frame_equal(a, b, check_exact=True)
+    assert list(got[3]["region"].cat.categories) == ["south", "west"]
+    part = list(read_parquet_part(str(path), [1], 400, ["p", "region"]))
+    pd.testing.assert_frame_equal(part[0], pq.ParquetFile(path).read_row_group(1, columns=["region", "p"])
+                                  .slice(0, 400).to_pandas(), check_exact=True)
