@@ -66,3 +66,19 @@ def test_cohens_h_known_value():
     assert cohens_h(0.5, 0.25) == pytest.approx(np.pi / 6, rel=1e-12)
     p1, p2 = np.linspace(0, 1, 11), np.linspace(1, 0, 11) ** 2
     np.testing.assert_allclose(cohens_h(p1, p2), proportion_effectsize(p1, p2), atol=1e-12)  # statsmodels reference
+
+
+def test_compiled_normal_tail_is_pythons_erfc_value_for_value():
+    # The compiled loop for large slice tables must give the numbers of Python's math.erfc exactly.
+    from audit.core.tally import numba_available
+
+    if not numba_available():
+        pytest.skip("numba not installed")
+    import math
+
+    from audit.core.kernels import half_erfc
+
+    rng = np.random.default_rng(3)
+    z = np.concatenate([np.abs(rng.normal(0, 3, 5000)), rng.exponential(10, 2000), [0.0, 40.0, np.inf, np.nan]])
+    want = np.array([0.5 * math.erfc(x / math.sqrt(2.0)) for x in z])
+    assert np.array_equal(half_erfc(z), want, equal_nan=True)

@@ -15,6 +15,7 @@ the average of the two variances for means.
 from __future__ import annotations
 
 import math
+import sys
 from dataclasses import dataclass
 
 import numpy as np
@@ -123,9 +124,21 @@ def two_proportion(k1, n1, k2, n2):
 _ERFC = np.frompyfunc(math.erfc, 1, 1)
 
 
+#: From this many values on, the compiled loop (when the compiled kernels are loaded already).
+COMPILED_ERFC_MIN = 20_000
+
+
 def _normal_sf(z):
-    """Upper tail of the standard normal, ½ erfc(z / √2), with the C library's erfc."""
+    """Upper tail of the standard normal, ½ erfc(z / √2), with the C library's erfc.
+
+    A large table of slices whose tally was compiled uses the same erfc in a compiled loop (the
+    same numbers, about a tenth of the time); otherwise numpy calls Python's erfc per value, so a
+    small audit never loads the compiler."""
     z = np.asarray(z, dtype=float)
+    if z.ndim == 1 and len(z) >= COMPILED_ERFC_MIN and "numba" in sys.modules:
+        from ..core.kernels import half_erfc
+
+        return half_erfc(z)
     return (0.5 * _ERFC(z / math.sqrt(2.0))).astype(float)
 
 

@@ -61,8 +61,9 @@ def t_quantile(q: float, df) -> np.ndarray:
         vals = df[small]
         whole = (vals == np.round(vals)) & (vals >= 1)
         res = np.full(len(vals), np.nan)
-        for nu in np.unique(vals[whole]):  # whole degrees of freedom (n - 1): exact series, no scipy
-            res[vals == nu] = _t_quantile_whole(q, int(nu))
+        # whole degrees of freedom (n - 1): the exact series once per distinct value, no scipy
+        nus, at = np.unique(vals[whole], return_inverse=True)
+        res[whole] = np.array([_t_quantile_whole(q, int(nu)) for nu in nus.tolist()])[at]
         rest = ~whole & ~np.isnan(vals)
         if rest.any():
             from scipy.special import stdtrit  # fractional df (Welch): loaded only when needed
@@ -227,14 +228,19 @@ def f1_interval(tp, fp, fn, *, method: str = "wilson", level: float = 0.95):
     return 2 * lo / (1 + lo), 2 * hi / (1 + hi)
 
 
-def mean_interval(n, s, ss, *, level: float = 0.95):
-    """Student-t interval for a mean from n, Σx and Σx²."""
+def mean_t(n, *, level: float = 0.95) -> np.ndarray:
+    """The t quantile of ``mean_interval`` for means of ``n`` values (shared by means of the same n)."""
+    return t_quantile(0.5 + level / 2, np.maximum(np.asarray(n, dtype=float) - 1, 1))
+
+
+def mean_interval(n, s, ss, *, level: float = 0.95, t=None):
+    """Student-t interval for a mean from n, Σx and Σx² (``t``: ``mean_t(n, level=level)`` if known)."""
     n = np.asarray(n, dtype=float)
     with np.errstate(invalid="ignore", divide="ignore"):
         m = s / n
         var = np.maximum(ss - n * m * m, 0.0) / (n - 1)
         se = np.sqrt(var / n)
-        t = t_quantile(0.5 + level / 2, np.maximum(n - 1, 1))
+        t = mean_t(n, level=level) if t is None else t
         lo, hi = m - t * se, m + t * se
     bad = ~(n > 1)
     return np.where(bad, np.nan, lo), np.where(bad, np.nan, hi)

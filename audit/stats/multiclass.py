@@ -22,7 +22,7 @@ from __future__ import annotations
 import numpy as np
 
 from .compare import cohens_d, cohens_h, two_proportion, welch_p
-from .intervals import _z, f1_interval, mean_interval, mover_difference, proportion_interval, welch_difference
+from .intervals import _z, f1_interval, mean_interval, mean_t, mover_difference, proportion_interval, welch_difference
 from .measure import ratio, same_text
 
 
@@ -124,8 +124,9 @@ def columns(counts, sums, classes, cfg, n_rows):
         cols[key] = av[key]
     if sums is not None:
         cols["log_loss"], cols["brier"] = ratio(sums[:, 0], n), ratio(sums[:, 2], n)
-        cols["log_loss_low"], cols["log_loss_high"] = mean_interval(n, sums[:, 0], sums[:, 1], level=lvl)
-        cols["brier_low"], cols["brier_high"] = mean_interval(n, sums[:, 2], sums[:, 3], level=lvl)
+        tq = mean_t(n, level=lvl)  # one t quantile per slice for both means
+        cols["log_loss_low"], cols["log_loss_high"] = mean_interval(n, sums[:, 0], sums[:, 1], level=lvl, t=tq)
+        cols["brier_low"], cols["brier_high"] = mean_interval(n, sums[:, 2], sums[:, 3], level=lvl, t=tq)
     else:
         for key in ("log_loss", "brier", "log_loss_low", "log_loss_high", "brier_low", "brier_high"):
             cols[key] = np.full(len(n), np.nan)

@@ -19,7 +19,7 @@ from ..core.tally import Tally
 from ..settings import AuditConfig
 from .compare import cohens_d, cohens_h, two_proportion, welch_p
 from .correct import adjust
-from .intervals import f1_interval, mean_interval, mover_difference, proportion_interval, welch_difference
+from .intervals import f1_interval, mean_interval, mean_t, mover_difference, proportion_interval, welch_difference
 from .measure import METRICS, RATE_COLUMNS, RATES, count_frame, metric_value, metric_values, same_text
 from .methods import COUNT_WORDS, metric_for
 from .findings import explain, selection_level, slice_keys
@@ -136,8 +136,9 @@ def _binary_columns(counts, rest, sums, rsums, auc, cfg, n_rows) -> dict[str, An
     cols["jaccard_low"], cols["jaccard_high"] = proportion_interval(c["tp"], c["tp_fp_fn"], method=meth, level=lvl)
     cols["log_loss"], cols["brier"] = v["log_loss"], v["brier"]
     if sums is not None:
-        cols["log_loss_low"], cols["log_loss_high"] = mean_interval(c["n"], sums[:, 0], sums[:, 1], level=lvl)
-        cols["brier_low"], cols["brier_high"] = mean_interval(c["n"], sums[:, 2], sums[:, 3], level=lvl)
+        tq = mean_t(c["n"], level=lvl)  # one t quantile per slice for both means
+        cols["log_loss_low"], cols["log_loss_high"] = mean_interval(c["n"], sums[:, 0], sums[:, 1], level=lvl, t=tq)
+        cols["brier_low"], cols["brier_high"] = mean_interval(c["n"], sums[:, 2], sums[:, 3], level=lvl, t=tq)
     else:
         for k in ("log_loss_low", "log_loss_high", "brier_low", "brier_high"):
             cols[k] = np.full(len(counts), np.nan)
