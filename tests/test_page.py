@@ -56,6 +56,16 @@ def open_charts(at):
     return at
 
 
+def open_findings(at):
+    """Open every finding's box (as a click on each would), then rerun."""
+    for e in at.expander:
+        if e.label.startswith("Finding "):
+            at.session_state[e.proto.id.split("-", 2)[2]] = True   # the id ends with the box's key
+    at.run()
+    assert not at.exception, at.exception
+    return at
+
+
 def charts_by_key(at) -> dict:
     import json
 
@@ -509,6 +519,9 @@ def test_findings_lead_with_their_echoes_folded_under_them():
     for lab, (_, r) in zip(labels, want.iterrows()):
         assert f"{int(r['echoes'])} echo" in lab
     first = want.iloc[0]
+    assert not [d for d in at.dataframe if "flag_rank" in d.value.columns]   # filled only when opened
+    open_findings(at)
+    assert [e.label for e in at.expander if e.label.startswith("Finding ")] == labels
     echo_tables = [d.value for d in at.dataframe if "flag_rank" in d.value.columns]
     assert echo_tables[0]["slice"].tolist() == exp.echoes(first["slice"])["slice"].tolist()
     assert set(echo_tables[0]["slice"]).isdisjoint(want["slice"])   # echoes are not findings
@@ -623,6 +636,7 @@ def test_three_classes_end_to_end():
     pd.testing.assert_frame_equal(drivers.reset_index(drop=True), class_drivers(exp, "channel=partner"),
                                   check_dtype=False)
     assert drivers.iloc[0]["class"] == "refer" and drivers.iloc[0]["rate"] == "recall"   # the planted weakness
+    open_findings(at)
     assert any("Driven by: recall of 'refer'" in m.value for m in at.markdown)      # under its finding too
     assert any("approve" in m.value and "Favourable outcome" in m.value for m in at.markdown)
 

@@ -188,7 +188,7 @@ def show_finished_run(run: "folder_view.FinishedRun") -> None:
     k5.metric("Findings", f"{len(res.findings()):,}")
     st.header("Findings first")
     tab_f, tab_r = st.tabs(["Findings and their echoes", "Every tested slice, ranked"])
-    findings_view.show(res, tab_f)
+    findings_view.show(res, tab_f, key=_h(run.folder))
     show_ranked(res, tab_r, key="run_ranked")
     if summ.get("fairness"):
         fav = (summ["fairness"] or {}).get("favorable_outcome")
@@ -471,7 +471,7 @@ st.header("4 · Findings first")
 st.caption("A finding is a flagged slice that no other flagged slice explains; the slices flagged only because "
            "they lie in or around it are its echoes. Every tested slice is in the second tab.")
 tab_findings, tab_ranked = st.tabs(["Findings and their echoes", "Every tested slice, ranked"])
-findings_view.show(result, tab_findings)
+findings_view.show(result, tab_findings, key=run_id)
 t = _tick("findings", t)
 ranked = result.ranked()
 attr_names = [a.name for a in result.attributes]

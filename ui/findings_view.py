@@ -48,7 +48,8 @@ def drivers_text(result, name: str) -> str:
 
 
 def show(result, st, *, key: str = "") -> None:
-    """Findings first (``st`` is the streamlit module or a container, such as a tab)."""
+    """Findings first (``st`` is the streamlit module or a container, such as a tab); ``key`` names the
+    result, so each finding's box keeps its open or closed state while the result stays the same."""
     from streamlit import column_config
 
     m = result.metric
@@ -80,7 +81,10 @@ def show(result, st, *, key: str = "") -> None:
         k = int(r["echoes"])
         label = (f"Finding {int(r['finding_rank'])} · {md(r['slice'])} — "
                  + (f"{k} echo{'es' if k != 1 else ''} folded under it" if k else "no echoes"))
-        box = st.expander(label, expanded=False)
+        # Filled only while open: up to SHOWN echo tables would otherwise be drawn, unseen, by every tab.
+        box = st.expander(label, expanded=False, key=f"finding_open-{key}-{i}", on_change="rerun")
+        if not box.open:
+            continue
         box.markdown(f"n = **{int(r['n']):,}** rows · {md(name)} {fmt(r['metric_value'])} against "
                      f"{fmt(r['rest_value'])} in the rest · difference {fmt(r['diff'])}, selection-adjusted "
                      f"interval [{fmt(r['diff_low_adj'])}, {fmt(r['diff_high_adj'])}] · adjusted p "
