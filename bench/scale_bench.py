@@ -188,7 +188,9 @@ def main(argv=None) -> int:
         print(f"{rows:,} rows; {os.cpu_count()} cores; load average before: {load[0]:.1f} {load[1]:.1f} {load[2]:.1f}")
         results, rounds = {}, []
         for name in [c for rnd in range(a.rounds) for c in CONTENDERS if c not in skip and (rnd == 0 or c != "duckdb")]:
+            load1 = os.getloadavg()[0]
             r = measure(name, path, a.chunk_rows)
+            r["load_before"] = load1
             rounds.append((name, r))
             best = results.get(name)
             if best is None or ("seconds" in r and ("seconds" not in best or r["seconds"] < best["seconds"])):
@@ -203,7 +205,7 @@ def main(argv=None) -> int:
                 extra = (f"  (cluster start {r['cluster_start']:.1f} s; worker peaks "
                          + ", ".join(f"{m:.0f}" for m in r["worker_peak_mb"]) + " MB)")
             print(f"{TITLES[name]:<30} {r['seconds']:7.1f} s  {rows / r['seconds'] / 1e6:6.2f} M rows/s  "
-                  f"peak {r['peak_mb']:6.0f} MB  (process {r['wall']:.1f} s){extra}", flush=True)
+                  f"peak {r['peak_mb']:6.0f} MB  (process {r['wall']:.1f} s; load {load1:.1f}){extra}", flush=True)
         if a.rounds > 1:
             print(f"best of {a.rounds} rounds:")
             for name, r in results.items():
