@@ -7,6 +7,7 @@ bound in tests/test_stream.py. One local cluster of two worker processes serves 
 import os
 import re
 import signal
+import time
 
 import numpy as np
 import pandas as pd
@@ -199,6 +200,46 @@ def test_workers_lost_until_dask_gives_up_is_one_line_and_no_output_folder(files
                         r"stopped and nothing was written\n", err), err
     assert len(log.read_text().splitlines()) >= 1
     assert not out.exists() and not list(tmp_path.glob("out*"))
+
+
+def _raise(exc):
+    raise exc
+
+
+def _fissure_tasks(dask_scheduler):
+    return sorted(str(k) for k in dask_scheduler.tasks if str(k).startswith("fissure-"))
+
+
+def test_ctrl_c_cancels_the_runs_tasks_on_a_shared_cluster(client, files, tmp_path, capsys, monkeypatch):
+    # The interrupted run's frames (and their futures) stay alive in the traceback pytest keeps;
+    # the run still takes its tasks off the cluster, which other users may share.
+    def progress(stage, frac):
+        if stage == "counting slices" and frac > 0.5:
+            raise KeyboardInterrupt
+
+    with pytest.raises(KeyboardInterrupt) as e:
+        audit.run(files["parquet"], chunk_rows=250, engine="dask", scheduler=client, progress=progress, **SETTINGS)
+    deadline = time.monotonic() + 10
+    while client.run_on_scheduler(_fissure_tasks) and time.monotonic() < deadline:
+        time.sleep(0.05)
+    assert client.run_on_scheduler(_fissure_tasks) == [] and e.tb is not None  # the traceback is still held
+    # the CLI: one line, exit 130, no output folder
+    out = tmp_path / "out"
+
+    def interrupted(*args, progress=None, **kwargs):
+        return audit.run(*args, progress=lambda stage, frac: progress(stage, frac) or
+                         (stage == "counting slices" and frac > 0.5 and _raise(KeyboardInterrupt)), **kwargs)
+
+    monkeypatch.setattr("audit.engine.run", interrupted)
+    code = main(["audit", files["parquet"], "--label", "Status", "--score", "p_bad", "--positive", "bad",
+                 "--chunk-rows", "250", "--engine", "dask", "--scheduler", client.scheduler.address,
+                 "--out", str(out)])
+    err = capsys.readouterr().err
+    assert code == 130 and err == "fissure: interrupted; nothing written\n" and not out.exists()
+    deadline = time.monotonic() + 10
+    while client.run_on_scheduler(_fissure_tasks) and time.monotonic() < deadline:
+        time.sleep(0.05)
+    assert client.run_on_scheduler(_fissure_tasks) == []
 
 
 def test_an_unreachable_scheduler_is_one_line_and_nothing_is_written(files, tmp_path, capsys):
