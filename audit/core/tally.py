@@ -573,7 +573,7 @@ def _grouped_triple_counts(codes, cards, cell, plan: TriplePlan, offsets, limit:
                                i64([p[1] for p in pairs]), i64([gcards[p[1]] for p in pairs]),
                                i64([first[p] for p in pairs]), i64(ends), i64([t[2] for t in gtr]),
                                i64([gcards[t[2]] for t in gtr]), goff[:-1].copy(), int(goff[-1]), nth, KERNEL_BLOCK)
-    acc = acc.astype(np.int64).sum(axis=0).reshape(-1, kk) if nth > 1 else acc[0].astype(np.int64).reshape(-1, kk)
+    acc = acc.sum(axis=0, dtype=np.int64).reshape(-1, kk)  # the threads' int32 tables, summed as int64
     out = np.zeros((int(offsets[-1]), kk), dtype=np.int64)
     holder: dict[tuple[int, ...], int] = {}  # a set of groups -> the first group triple holding it
     for q, t in enumerate(gtr):
