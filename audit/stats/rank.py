@@ -36,8 +36,17 @@ def order_by(key: np.ndarray, then: np.ndarray) -> np.ndarray:
         tied[1:] |= same
         tied[:-1] |= same
         sel = np.flatnonzero(tied)
-        sub = o[sel]
-        o[sel] = sub[np.lexsort((sub, np.asarray(then, dtype=float)[sub], grp[sel]))]
+        sub, g = o[sel], grp[sel]
+        # Tied slices mostly share their counts, so their p-values too: then (group, position) is
+        # the whole key, one integer sort. Groups whose p-values differ take the full lexsort.
+        by = np.argsort(g.astype(np.int64) * len(key) + sub)
+        sub, g = sub[by], g[by]
+        pv = np.asarray(then, dtype=float)[sub]
+        pn = np.isnan(pv)
+        differ = (g[1:] == g[:-1]) & ~((pv[1:] == pv[:-1]) | (pn[1:] & pn[:-1]))
+        if differ.any():
+            sub = sub[np.lexsort((sub, pv, g))]
+        o[sel] = sub
     return o
 
 
