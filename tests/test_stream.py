@@ -210,3 +210,16 @@ def test_parquet_chunks_equal_pyarrows_own_conversion(tmp_path):
     part = list(read_parquet_part(str(path), [1], 400, ["p", "region"]))
     pd.testing.assert_frame_equal(part[0], pq.ParquetFile(path).read_row_group(1, columns=["region", "p"])
                                   .slice(0, 400).to_pandas(), check_exact=True)
+
+
+def test_a_source_dropped_unread_stops_its_digest(files):
+    import gc
+
+    from audit.core.sources import open_source
+
+    src = open_source(files["parquet"], chunk_rows=1000)
+    digest = src._pending[1]
+    del src
+    gc.collect()
+    digest._thread.join(timeout=10)
+    assert digest._stop.is_set() and not digest._thread.is_alive()

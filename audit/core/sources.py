@@ -50,7 +50,16 @@ class Source:
 
     @info.setter
     def info(self, value: SourceInfo) -> None:
+        if self._pending is not None:
+            self._pending[1].cancel()  # the caller names the table itself: no digest needed
         self._info, self._pending = value, None
+
+    def __del__(self):
+        # A source dropped unread (a run stopped by an input error) stops its digest too: a
+        # long-lived process (the page, a notebook) should not keep hashing a large file.
+        pending = self._pending
+        if pending is not None:
+            pending[1].cancel()
 
     def chunks(self, columns: list[str] | None = None) -> Iterator[tuple[int, pd.DataFrame]]:  # pragma: no cover
         """``(first data row, DataFrame)`` per chunk; ``columns`` may limit what is read (a hint)."""
@@ -93,6 +102,7 @@ class _Digest:
         self.paths = list(paths)
         self._result: tuple[str, int] | None = None
         self._error: BaseException | None = None
+        self._stop = threading.Event()
         self._thread = threading.Thread(target=self._run, name="fissure-sha256", daemon=True)
         self._thread.start()
 
@@ -102,13 +112,28 @@ class _Digest:
         except (AttributeError, OSError):  # pragma: no cover - other systems: normal priority
             pass
         try:
-            self._result = _digest(self.paths)
+            h = hashlib.sha256()
+            size = 0
+            for p in self.paths:
+                with open(p, "rb") as fh:
+                    for block in iter(lambda: fh.read(1 << 20), b""):
+                        if self._stop.is_set():
+                            return
+                        h.update(block)
+                        size += len(block)
+            self._result = (h.hexdigest(), size)
         except BaseException as exc:  # reported by result(), in the caller's thread
             self._error = exc
+
+    def cancel(self) -> None:
+        """Stop hashing (the digest is not wanted any more); ``result()`` must not be called after."""
+        self._stop.set()
 
     def result(self) -> tuple[str, int]:
         """``(hex digest, bytes read)``; waits for the thread."""
         self._thread.join()
+        if self._result is None and self._error is None:
+            raise RuntimeError("the digest was cancelled")
         if self._error is not None:
             name = shown(os.path.basename(self.paths[0])) if len(self.paths) == 1 else f"{len(self.paths)} input files"
             raise AuditInputError(f"{'input file ' if len(self.paths) == 1 else ''}{name} could not be read to the "
