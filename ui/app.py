@@ -29,6 +29,7 @@ if ROOT not in sys.path:
 from audit.engine import ALL, run  # noqa: E402
 from audit.errors import AuditInputError  # noqa: E402
 from audit.faces.export import fairness_csv, slices_csv, summary_json  # noqa: E402
+from audit.faces.prose import triples_words  # noqa: E402
 from audit.stats.correct import CORRECTIONS  # noqa: E402
 from audit.stats.intervals import INTERVALS  # noqa: E402
 from audit.stats.measure import METRICS  # noqa: E402
@@ -442,6 +443,8 @@ k3.metric("Slices tested", f"{stc.get('tested', 0):,}", help=f"family size m = {
 k4.metric("Below support", f"{stc.get('below_support', 0):,}")
 k5.metric("Flagged", f"{stc.get('flagged', 0):,}", help="Slices that do worse than the rest of the rows, with "
           "adjusted p at or below the threshold. Slices that do better are never flagged.")
+if triples_words(result):
+    st.caption(f"Triples of values from three different attributes: {md(triples_words(result))}.")
 skipped = {**result.skipped}
 NUM4 = st.column_config.NumberColumn(format="%.4f")
 if multi:
