@@ -418,12 +418,18 @@ def _audit():
 
 
 t = _tick("settings", t)
+# A still notice, not an animated spinner: an animation keeps the browser drawing frames for as long as
+# the audit runs, which on a busy server is the whole wait (the running mark at the top already moves).
+notice = st.empty()
+if RESULTS.get((sha, name, key)) is None:
+    notice.caption("Auditing every slice…")
 try:
-    with st.spinner("Auditing every slice…"):
-        result, created = RESULTS.get_or_make((sha, name, key), _audit)
+    result, created = RESULTS.get_or_make((sha, name, key), _audit)
 except AuditInputError as exc:
+    notice.empty()
     st.error(f"The audit could not run: {page_error(exc)}")
     st.stop()
+notice.empty()
 t = _tick("audit", t)
 run_id = _h(sha, key)
 
