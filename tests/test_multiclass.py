@@ -257,3 +257,37 @@ def test_compiled_class_rows_equal_numpy_and_break_ties_like_argmax():
     assert (a[0][:200] == 0).all()
     np.testing.assert_allclose(a[1], b[1], rtol=1e-14)
     np.testing.assert_allclose(a[2], b[2], rtol=1e-12, atol=1e-15)
+
+
+@pytest.mark.parametrize("kernel", ["numpy", "compiled"])
+def test_more_than_eleven_classes_count_every_cell(kernel, tmp_path):
+    # 13 classes: 169 confusion cells, past what one signed byte holds. Reference: scikit-learn's
+    # confusion_matrix and precision_recall_fscore_support on each slice's rows; chunked run equal.
+    if kernel == "compiled":
+        from audit.core.tally import numba_available
+
+        if not numba_available():
+            pytest.skip("numba not installed")
+    rng = np.random.default_rng(21)
+    n, k = 6000, 13
+    y = rng.integers(0, k, n)
+    yh = np.where(rng.random(n) < 0.6, y, rng.integers(0, k, n))
+    names = np.array([f"grade {i:02d}" for i in range(k)])
+    df = pd.DataFrame({"grade": names[y], "predicted": names[yh], "branch": rng.choice(["north", "south", "east"], n),
+                       "product": rng.choice(["card", "loan"], n)})
+    res = audit.run(df, label="grade", pred="predicted", kernel=kernel)
+    path = tmp_path / "graded.csv"
+    df.to_csv(path, index=False)
+    chunked = audit.run(str(path), label="grade", pred="predicted", chunk_rows=700)
+    for name in ("branch=south", "product=loan", "branch=east & product=card"):
+        s = res.slice(name)
+        m = slice_mask(df, s)
+        cm = skm.confusion_matrix(names[y][m], names[yh][m], labels=list(names))
+        cells = np.array([[int(s[f"true_{a}_pred_{b}"]) for b in names] for a in names])
+        assert (cells == cm).all()
+        assert int(s["n"]) == int(m.sum())
+        assert float(s["accuracy"]) == pytest.approx(np.trace(cm) / m.sum(), abs=1e-12)
+        _, _, f1, _ = skm.precision_recall_fscore_support(names[y][m], names[yh][m], average="macro", zero_division=0)
+        assert float(s["macro_f1"]) == pytest.approx(f1, abs=1e-12)
+        assert int(chunked.slice(name)["n"]) == int(s["n"])
+        assert float(chunked.slice(name)["macro_f1"]) == pytest.approx(float(s["macro_f1"]), abs=1e-12)

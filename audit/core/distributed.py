@@ -49,7 +49,7 @@ from ..errors import AuditInputError, shown
 from .outcomes import labelled_rows
 from .stream import (CsvSource, Evidence, Fitted, ParquetSource, Source, SourceInfo, _digest, _expand, _triples,
                      csv_column_types, fit_evidence, needed_columns, profile_source, read_parquet_part, tally_part)
-from .tally import Tally, TriplePlan, plan_triples, row_losses
+from .tally import Tally, TriplePlan, cell_codes, plan_triples, row_losses
 
 #: Rows per part when ``chunk_rows`` is not given (a part is read in chunks of this many rows too).
 PART_ROWS = 1_000_000
@@ -311,7 +311,7 @@ def _third_pass_task(plan: Plan, index: int, fitted: Fitted, cfg, offset: int, t
             df = df[ok]
         out = fitted.outcomes.apply(df, None)
         rows = {"codes": fitted.encoding.apply(df, None, offset=off),
-                "cell": (out.y.astype(np.int16) * k + out.yhat).astype(np.int8), "ll": None, "br": None}
+                "cell": cell_codes(out.y, out.yhat, k), "ll": None, "br": None}
         if out.score is not None:
             rows["ll"], rows["br"] = row_losses(out.y, out.score)
         elif out.losses is not None:

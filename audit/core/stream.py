@@ -23,7 +23,7 @@ from ..errors import AuditInputError, shown
 from .auc import ExactAuc, hist_bins, score_histogram, slice_auc
 from .encoding import ID_MIN_DISTINCT, Encoding, choose_columns, fit_encoding, profile_column
 from .outcomes import (OutcomeSpec, check_columns, fit_outcomes, labelled_rows, need_columns, profile_outcomes)
-from .tally import (LOSS_SUMS, Tally, plan_families, plan_triples, row_losses, tally, tally_numpy,
+from .tally import (LOSS_SUMS, Tally, cell_codes, plan_families, plan_triples, row_losses, tally, tally_numpy,
                     tally_triples, use_compiled)
 
 #: Equal-width probability bins of the fairness module's calibration error.
@@ -298,7 +298,7 @@ def tally_chunk(df: pd.DataFrame, fitted: Fitted, cfg, *, offset: int = 0, cache
     codes = fitted.encoding.apply(df, caches.get("attributes"), offset=offset)
     cards = fitted.cards
     k = fitted.outcomes.n_classes
-    cell = (out.y.astype(np.int16) * k + out.yhat).astype(np.int8)
+    cell = cell_codes(out.y, out.yhat, k)
     n = len(cell)
     compiled = use_compiled(n, len(fitted.families), kernel)
     ll = br = None
@@ -434,7 +434,7 @@ def tally_source(source: Source, fitted: Fitted, cfg, *, keep: dict | None = Non
             out = fitted.outcomes.apply(df, None)
             rows["codes"] = fitted.encoding.apply(df, None, offset=offset)
             k = fitted.outcomes.n_classes
-            rows["cell"] = (out.y.astype(np.int16) * k + out.yhat).astype(np.int8)
+            rows["cell"] = cell_codes(out.y, out.yhat, k)
             rows["ll"] = rows["br"] = None
             if out.score is not None:
                 rows["ll"], rows["br"] = row_losses(out.y, out.score)

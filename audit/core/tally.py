@@ -93,6 +93,13 @@ def class_rows(y: np.ndarray, probs_by_class: np.ndarray, *, compiled: bool = Fa
     return yhat, ll, br
 
 
+def cell_codes(y: np.ndarray, yhat: np.ndarray, n_classes: int) -> np.ndarray:
+    """Each row's confusion cell y·K + ŷ, in the narrowest type holding the K² cells (int8 up to
+    eleven classes, int16 up to the fifty allowed)."""
+    dt = np.int8 if n_classes * n_classes <= 127 else np.int16
+    return (y.astype(np.int16) * n_classes + yhat).astype(dt)
+
+
 def small_histogram(codes: np.ndarray, size: int, *, compiled: bool = False) -> np.ndarray:
     """Counts of each value of a small unsigned integer array."""
     if compiled:
@@ -384,7 +391,7 @@ def _run_group_kernel(codes, cards, cell, ll, br, groups, gcards, gpairs, n_clas
             np.multiply(v, gdt(cards[a]), out=v)
             np.add(v, codes[a], out=v, casting="unsafe")
     total = int(goffsets[-1])
-    c8 = cell.astype(np.int8, copy=False)
+    c8 = cell if cell.dtype == np.int16 else cell.astype(np.int8, copy=False)  # K > 11: int16 cells
     if n_classes == 2:
         acc = _binary_kernel(gt, c8, ll, br, ga, gb, gcb, goffsets[:-1].copy(), total, nth, KERNEL_BLOCK)
     else:
