@@ -42,7 +42,6 @@ import uuid
 from dataclasses import dataclass, field, replace
 from typing import Any, Callable
 
-import numpy as np
 import pandas as pd
 
 from ..errors import AuditInputError, shown
@@ -386,8 +385,8 @@ def _task_words(key: str) -> str:
     """A task's key (``fissure-<run>-tally-3``) in words: "part 4 of the counting pass"."""
     bits = key.split("-")
     passes = {"plan": "the listing of the parts", "plan_data": "the plan", "fitted": "the encoding",
-              "triple_plan": "the triple plan", "fit": "the reading pass", "refit": "the reading pass", "tally": "the counting pass",
-              "triples": "the triples pass", "digest": "the file digest"}
+              "triple_plan": "the triple plan", "fit": "the reading pass", "refit": "the reading pass",
+              "tally": "the counting pass", "triples": "the triples pass", "digest": "the file digest"}
     if len(bits) >= 3 and bits[0] == "fissure" and bits[2] in passes:
         if len(bits) == 4 and bits[3].isdigit():
             return f"part {int(bits[3]) + 1} of {passes[bits[2]]}"
