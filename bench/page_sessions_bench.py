@@ -15,9 +15,10 @@ Goals (issue 14, section 3): ratio ≤ 2.5 for each of the four; growth ≤ 300 
 
 The machine is shared, and other people's work comes and goes within a run: so each round is
 paired with a lone session (its own new file) measured just before it, and the ratio is also
-given against that paired lone time. The load average and the server's CPU seconds per session
-are printed beside each figure (the browsers run on the same two cores as the server here, so a
-session's cost is its server CPU plus its browser tab's CPU).
+given against that paired lone time. The load average and the CPU seconds per session are printed
+beside each figure: the server's, and the browser's (its tab's renderer, Chromium's compositor, the
+rest of Chromium). The browsers run on the same two cores as the server here, so a session costs
+the machine its server CPU plus its browser CPU.
 
     .venv/bin/python bench/page_sessions_bench.py [--rows 20000] [--rounds 5] [--sessions 4]
 """
@@ -75,6 +76,43 @@ def load() -> str:
     return "load " + " ".join(f"{x:.1f}" for x in os.getloadavg())
 
 
+def browser_cpu() -> dict[int, tuple[str, float]]:
+    """CPU seconds so far of every Chromium process started by this script, by pid, with its kind:
+    ``tab`` (a page's renderer), ``compositor`` (Chromium's GPU process, drawing in software here)
+    or ``other`` (the browser, network and utility processes)."""
+    procs = {}
+    for d in os.listdir("/proc"):
+        if not d.isdigit():
+            continue
+        try:
+            with open(f"/proc/{d}/stat") as fh:
+                name, rest = fh.read().split(" (", 1)[1].rsplit(")", 1)
+            with open(f"/proc/{d}/cmdline", "rb") as fh:
+                cmd = fh.read().replace(b"\0", b" ").decode(errors="replace")
+        except OSError:
+            continue
+        f = rest.split()
+        procs[int(d)] = (int(f[1]), cmd, (int(f[11]) + int(f[12])) / os.sysconf("SC_CLK_TCK"))
+    mine, out = {os.getpid()}, {}
+    for _ in range(6):  # descendants, a few generations deep (driver → browser → zygote → renderer)
+        mine |= {pid for pid, (ppid, _, _) in procs.items() if ppid in mine}
+    for pid in mine - {os.getpid()}:
+        _, cmd, cpu = procs[pid]
+        if "chrom" not in cmd:
+            continue
+        kind = "tab" if "--type=renderer" in cmd else "compositor" if "--type=gpu-process" in cmd else "other"
+        out[pid] = (kind, cpu)
+    return out
+
+
+def cpu_split(before: dict, after: dict, n: int) -> str:
+    """Browser CPU between two snapshots (processes alive at the second), per session."""
+    kinds: dict[str, float] = {}
+    for pid, (kind, cpu) in after.items():
+        kinds[kind] = kinds.get(kind, 0.0) + cpu - before.get(pid, (kind, 0.0))[1]
+    return ", ".join(f"{k} {kinds.get(k, 0.0) / n:.2f}" for k in ("tab", "compositor", "other"))
+
+
 def rss_mb(pid: int) -> float:
     with open(f"/proc/{pid}/status") as fh:
         for line in fh:
@@ -83,8 +121,9 @@ def rss_mb(pid: int) -> float:
     return float("nan")
 
 
-async def session(browser, url: str, path: str | None, n: int | None) -> float:
-    """Open the page (and upload ``path``); seconds until the ranked table of this file shows."""
+async def session(browser, url: str, path: str | None, n: int | None, keep: list | None = None) -> float:
+    """Open the page (and upload ``path``); seconds until the ranked table of this file shows.
+    With ``keep``, the tab is left open there (closed later, after its CPU has been read)."""
     ctx = await browser.new_context(viewport={"width": 1280, "height": 1400})
     page = await ctx.new_page()
     t = time.perf_counter()
@@ -98,8 +137,16 @@ async def session(browser, url: str, path: str | None, n: int | None) -> float:
         await page.locator(RANKED).nth(1).wait_for(timeout=300_000)
         await page.locator('[data-testid="stStatusWidget"]').wait_for(state="detached", timeout=300_000)
     took = time.perf_counter() - t
-    await ctx.close()
+    if keep is None:
+        await ctx.close()
+    else:
+        keep.append(ctx)
     return took
+
+
+async def close(keep: list) -> None:
+    while keep:
+        await keep.pop().close()
 
 
 def make_file(folder: str, rows: int, seed: int) -> str:
@@ -139,27 +186,33 @@ async def main_async(a) -> int:
             mem, ratios, paired = [], [], []
             seed = 2
             for r in range(a.rounds):
-                c0 = cpu_s(proc.pid)
-                lone = await session(browser, url, files[seed], a.rows + seed)
-                lone_cpu = cpu_s(proc.pid) - c0
+                tabs: list = []
+                c0, b0 = cpu_s(proc.pid), browser_cpu()
+                lone = await session(browser, url, files[seed], a.rows + seed, tabs)
+                lone_cpu, lone_split = cpu_s(proc.pid) - c0, cpu_split(b0, browser_cpu(), 1)
+                await close(tabs)
                 seed += 1
                 todo = []
                 for _ in range(a.sessions):
-                    todo.append(session(browser, url, files[seed], a.rows + seed))
+                    todo.append(session(browser, url, files[seed], a.rows + seed, tabs))
                     seed += 1
-                c0, t = cpu_s(proc.pid), time.perf_counter()
+                c0, b0, t = cpu_s(proc.pid), browser_cpu(), time.perf_counter()
                 times = await asyncio.gather(*todo)
                 wall, round_cpu = time.perf_counter() - t, cpu_s(proc.pid) - c0
+                round_split = cpu_split(b0, browser_cpu(), a.sessions)
+                await close(tabs)
                 mem.append(rss_mb(proc.pid))
                 rr = [x / base for x in times]
                 pr = [x / lone for x in times]
                 ratios += rr
                 paired += pr
-                print(f"round {r + 1}: lone just before {lone:.2f} s (server CPU {lone_cpu:.2f} s); {a.sessions} at once "
+                print(f"round {r + 1}: lone just before {lone:.2f} s (CPU s: server {lone_cpu:.2f}, {lone_split}); "
+                      f"{a.sessions} at once "
                       + ", ".join(f"{x:.2f}" for x in times) + " s; ratio to that lone "
                       + ", ".join(f"{x:.2f}" for x in pr) + f" (max {max(pr):.2f}), to the best lone "
                       + ", ".join(f"{x:.2f}" for x in rr) + f"; wall {wall:.2f} s; server CPU "
-                      f"{round_cpu / a.sessions:.2f} s per session; server {mem[-1]:.0f} MB; {load()}")
+                      f"{round_cpu / a.sessions:.2f} s per session, browser per session {round_split}; server {mem[-1]:.0f} MB; "
+                      f"{load()}")
             await browser.close()
         print(f"\nconcurrency, against the lone session measured just before each round: worst "
               f"{max(paired):.2f}×, median {statistics.median(paired):.2f}× (goal ≤ 2.5× for each)")
