@@ -595,15 +595,22 @@ def start_local_cluster(workers: int | None = None, *, threads: int = 1, local_d
     """A cluster of worker processes on this machine (bound to 127.0.0.1, no dashboard).
 
     Each worker's compiled kernels run one thread, so the workers share the cores instead of
-    competing for them.
+    competing for them. Without ``local_directory`` the workers' scratch space is a temporary
+    folder removed when the cluster object goes (or when Python exits).
     """
+    import shutil
     import tempfile
+    import weakref
 
     from distributed import LocalCluster
 
     n = workers or max(1, os.cpu_count() or 1)
+    own = local_directory is None
     local_directory = local_directory or tempfile.mkdtemp(prefix="fissure-dask-")
-    return LocalCluster(n_workers=n, threads_per_worker=threads, processes=True, dashboard_address=None,
-                        host="127.0.0.1", local_directory=local_directory,
-                        env={"NUMBA_NUM_THREADS": str(threads), "OMP_NUM_THREADS": "1"},
-                        silence_logs=50)  # CRITICAL: a failed run is our one line, not the scheduler's log
+    cluster = LocalCluster(n_workers=n, threads_per_worker=threads, processes=True, dashboard_address=None,
+                           host="127.0.0.1", local_directory=local_directory,
+                           env={"NUMBA_NUM_THREADS": str(threads), "OMP_NUM_THREADS": "1"},
+                           silence_logs=50)  # CRITICAL: a failed run is our one line, not the scheduler's log
+    if own:
+        weakref.finalize(cluster, shutil.rmtree, local_directory, ignore_errors=True)
+    return cluster
