@@ -290,6 +290,8 @@ def summarize(tl: Tally, fitted: Fitted, cfg: AuditConfig, *, source: SourceInfo
     # copy=False: one block per column, not stacked into one array per dtype (a copy of every number).
     df = pd.DataFrame({k: (pd.Series(v, dtype=object) if isinstance(v, np.ndarray) and v.dtype == object else v)
                        for k, v in cols.items()}, copy=False)
+    if df.shape[1] > 100:  # ten classes or more: consolidated, so a column added later does not warn
+        df = df.copy()
 
     whole = df.iloc[0]
     if k_cls == 2:
