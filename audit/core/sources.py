@@ -10,6 +10,7 @@ from __future__ import annotations
 import glob
 import hashlib
 import os
+import queue
 import threading
 from dataclasses import dataclass
 from typing import Any, Iterator
@@ -157,6 +158,48 @@ def _expand(path: str, exts: tuple[str, ...]) -> list[str]:
     return files
 
 
+def read_ahead(chunks: Iterator[Any]) -> Iterator[Any]:
+    """``chunks``, read one chunk ahead in a background thread: the next chunk is read and
+    converted while the caller counts the current one (pyarrow, the CSV parser and numpy release
+    the GIL for most of their work). An error is raised where its chunk would have come. At most
+    two chunks are held besides the caller's; closing the stream stops the reader at its next chunk.
+    """
+    slot: queue.Queue = queue.Queue(maxsize=1)
+    stop = threading.Event()
+
+    def put(item) -> bool:
+        while not stop.is_set():
+            try:
+                slot.put(item, timeout=0.1)
+                return True
+            except queue.Full:
+                continue
+        return False
+
+    def work() -> None:
+        try:
+            for chunk in chunks:
+                if not put(("chunk", chunk)):
+                    return
+            put(("end", None))
+        except BaseException as exc:  # re-raised in the caller's thread
+            put(("error", exc))
+
+    reader = threading.Thread(target=work, name="fissure-read-ahead", daemon=True)
+    reader.start()
+    try:
+        while True:
+            kind, value = slot.get()
+            if kind == "chunk":
+                yield value
+            elif kind == "end":
+                return
+            else:
+                raise value
+    finally:
+        stop.set()
+
+
 class ParquetSource(Source):
     """Parquet file(s) read in record batches of ``chunk_rows`` rows (pyarrow)."""
 
@@ -188,6 +231,9 @@ class ParquetSource(Source):
     def chunks(self, columns=None):
         if self.expected_rows is None:
             self.parts()
+        return read_ahead(self._chunks(columns))
+
+    def _chunks(self, columns):
         offset = 0
         for f in self.files:
             for df in read_parquet_part(f, None, self.chunk_rows, columns):
@@ -329,6 +375,9 @@ class CsvSource(Source):
                            encoding_errors="strict", low_memory=False)
 
     def chunks(self, columns=None):
+        return read_ahead(self._chunks(columns))
+
+    def _chunks(self, columns):
         offset = 0
         f = self.files[0]
         try:
