@@ -28,7 +28,7 @@ __all__ = ["run", "AuditResult", "ALL", "fit", "summarize", "Tally", "Fitted"]
 
 def run(data: pd.DataFrame | str | os.PathLike, *, source: SourceInfo | None = None, progress: Progress | None = None,
         kernel: str = "auto", engine: str = "local", scheduler: Any = None, **settings: Any) -> AuditResult:
-    """Audit a binary classifier's predictions slice by slice.
+    """Audit a classifier's predictions slice by slice (two classes or more).
 
     Parameters
     ----------
@@ -62,8 +62,9 @@ def run(data: pd.DataFrame | str | os.PathLike, *, source: SourceInfo | None = N
     level : float
         Confidence level of every interval (0.95).
     interval : {"wilson", "clopper-pearson"}
-    max_order : {1, 2}
-        Single attributes only, or pairs too.
+    max_order : {1, 2, 3}
+        Single attributes only, pairs too, or triples of values from three attributes as well
+        (counted under pairs with at least ``min_support`` rows).
     auc_max_order : {-1, 0, 1, 2}
         Highest slice order for which ROC AUC is computed (needs ``score``; -1: none).
     protected, favorable, reference, min_group_share
