@@ -413,6 +413,21 @@ def open_cli(at):
     return at
 
 
+def test_interval_level_box_drives_the_audit(demo_df):
+    at = app().run()
+    box = w(at, "selectbox", "level")
+    assert box.value == 0.95 and box.options == ["80%", "90%", "95%", "99%"]
+    box.set_value(0.9)
+    submit(at)
+    assert w(at, "selectbox", "level").value == 0.9
+    exp = audit.run(demo_df, label="delinquent", score="p_delinquent", level=0.9)
+    pd.testing.assert_frame_equal(ranked_table(at).reset_index(drop=True),
+                                  exp.ranked()[RANKED].rename(columns={"metric_value": "error_rate"})
+                                  .reset_index(drop=True), check_dtype=False)
+    overall = at.dataframe[0].value
+    assert {"90% low", "90% high"} <= set(overall.columns)
+
+
 def test_fairness_chart_section_draws_the_groups_in_the_table(demo_df):
     at = app().run()
     w(at, "multiselect", "protected").set_value(["sex", "age_band"])
