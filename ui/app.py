@@ -36,7 +36,7 @@ from audit.stats.measure import METRICS  # noqa: E402
 from audit.stats.methods import metric_for  # noqa: E402
 from ui import classes_view, fairness_view, findings_view, folder_view, intake, sections  # noqa: E402
 from ui.memo import REPORTS, RESULTS  # noqa: E402
-from ui.wording import WIDGETS, check_reference, fmt, md, or_nan, page_error, parse_reference  # noqa: E402
+from ui.wording import WIDGETS, check_reference, fmt, md, page_error, parse_reference  # noqa: E402
 
 DEMO_PATH = os.path.join(ROOT, "demo", "predictions.csv")
 CAUTION = ("**Read flags as signals, not verdicts.** A flag means a slice's numbers differ from the rest of the rows "
@@ -469,10 +469,11 @@ else:
               "roc_auc"]:
         if o.get(k) is None:
             continue
-        rows.append({"metric": k, "value": o[k], f"{lvl}% low": or_nan(o.get(k + "_low")),
-                     f"{lvl}% high": or_nan(o.get(k + "_high"))})
+        # interval ends as text: the browser's grid writes a missing number as "None"; here it is a dash
+        rows.append({"metric": k, "value": o[k], f"{lvl}% low": fmt(o.get(k + "_low")),
+                     f"{lvl}% high": fmt(o.get(k + "_high"))})
     left.dataframe(pd.DataFrame(rows), hide_index=True, width="stretch", height=35 * (len(rows) + 1) + 3,
-                   column_config={"value": NUM4, f"{lvl}% low": NUM4, f"{lvl}% high": NUM4})
+                   column_config={"value": NUM4})
     sections.show_confusion(right, sections.confusion_table(o, result.classes), "Confusion matrix, all rows")
 if skipped:
     st.caption("Chosen but not sliced by the audit: " + "; ".join(f"**{md(k)}**: {md(v)}" for k, v in skipped.items()))

@@ -12,7 +12,7 @@ import pandas as pd
 from audit.engine import ALL
 from audit.faces.prose import class_drivers, prediction_words
 from ui.sections import chart_section, class_confusion_table, show_confusion
-from ui.wording import md, or_nan
+from ui.wording import fmt, md
 
 AVERAGES = ["accuracy", "error_rate", "macro_f1", "micro_f1", "weighted_f1", "macro_precision", "macro_recall",
             "log_loss", "brier"]
@@ -24,8 +24,9 @@ def averages_table(result, lvl: int) -> pd.DataFrame:
     for k in AVERAGES:
         if o.get(k) is None:
             continue
-        rows.append({"metric": k, "value": o[k], f"{lvl}% low": or_nan(o.get(k + "_low")),
-                     f"{lvl}% high": or_nan(o.get(k + "_high"))})
+        # interval ends as text: the browser's grid writes a missing number as "None"; here it is a dash
+        rows.append({"metric": k, "value": o[k], f"{lvl}% low": fmt(o.get(k + "_low")),
+                     f"{lvl}% high": fmt(o.get(k + "_high"))})
     return pd.DataFrame(rows)
 
 
@@ -47,7 +48,7 @@ def overview(result, st, *, lvl: int) -> None:
     left, right = st.columns([3, 2])
     avg = averages_table(result, lvl)
     left.dataframe(avg, hide_index=True, width="stretch", height=35 * (len(avg) + 1) + 3,
-                   column_config={c: num(format="%.4f") for c in avg.columns[1:]})
+                   column_config={"value": num(format="%.4f")})
     pc = per_class_table(result)
     left.dataframe(pc, hide_index=True, width="stretch", height=35 * (len(pc) + 1) + 3,
                    column_config={"support": num(format="%d"), "predicted": num(format="%d"),

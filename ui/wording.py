@@ -120,11 +120,6 @@ def _pairs(items):
     return [(a, b) for i, a in enumerate(items) for b in items[i + 1:]]
 
 
-def or_nan(x):
-    """An interval end the engine left undefined shows as an empty cell, not the word None."""
-    return float("nan") if x is None else x
-
-
 def fmt(x, d=4) -> str:
     """A number with ``d`` decimals, or a dash where there is none."""
     try:
