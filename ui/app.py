@@ -36,7 +36,7 @@ from audit.stats.measure import METRICS  # noqa: E402
 from audit.stats.methods import metric_for  # noqa: E402
 from ui import classes_view, fairness_view, findings_view, folder_view, intake, sections  # noqa: E402
 from ui.memo import REPORTS, RESULTS  # noqa: E402
-from ui.wording import WIDGETS, check_reference, fmt, md, page_error, parse_reference  # noqa: E402
+from ui.wording import WIDGETS, check_reference, fmt, md, page_error, page_words, parse_reference  # noqa: E402
 
 DEMO_PATH = os.path.join(ROOT, "demo", "predictions.csv")
 CAUTION = ("**Read flags as signals, not verdicts.** A flag means a slice's numbers differ from the rest of the rows "
@@ -303,7 +303,12 @@ else:
 
 candidates = [c for c in cols if c not in used]
 bins_now = int(st.session_state.get(f"bins-{sig}", 5))
-sliceable, not_sliceable = intake.screen(table, candidates, label=label, bins=bins_now)
+numeric_cols = [c for c in candidates if intake.is_number_column(table, c)]
+# The screen follows the last submitted codes/bins choices, as the audit will.
+cat_now = [c for c in (recall("categorical") or []) if c in numeric_cols]
+num_now = [c for c in (recall("numeric") or []) if c in numeric_cols and c not in cat_now]
+sliceable, not_sliceable = intake.screen(table, candidates, label=label, bins=bins_now, categorical=cat_now,
+                                         numeric=num_now)
 values = intake.label_values(table, label)
 roles = (sig, *used)
 t = _tick("guess", t)
@@ -323,8 +328,16 @@ with st.form("settings"):
     bins = c6.number_input(WIDGETS["bins"], 1, 20, 5, 1, key=f"bins-{sig}")
     attrs = choose_many(st, WIDGETS["attributes"], candidates, sliceable, "attributes", *roles)
     if not_sliceable:
-        st.caption("Not preselected: " + "; ".join(f"**{md(k)}**: {md(v)}" for k, v in not_sliceable.items())
+        st.caption("Not preselected: " + "; ".join(f"**{md(k)}**: {md(page_words(v))}" for k, v in not_sliceable.items())
                    + ". Choosing one anyway: the audit skips it and says why.")
+    if numeric_cols:
+        k1, k2 = st.columns(2)
+        categorical = choose_many(k1, WIDGETS["categorical"], numeric_cols, cat_now, "categorical", *roles,
+                                  help="Branch, product or region codes: each value is a slice, never binned.")
+        numeric = choose_many(k2, WIDGETS["numeric"], numeric_cols, num_now, "numeric", *roles,
+                              help="Cut into quantile bins even when the column has only a few distinct values.")
+    else:
+        categorical, numeric = [], []
     c7, c8, c9, c10 = st.columns(4)
     if not multi:
         metric_names = [k for k, m in METRICS.items() if score is not None or not m.needs_score]
@@ -395,6 +408,15 @@ settings = {
     "min_support": int(min_support), "min_metric_support": int(min_metric), "alpha": float(alpha),
     "correction": correction, "interval": interval, "level": float(level), "max_order": int(max_order),
 }
+both = sorted(set(categorical) & set(numeric))
+if both:
+    st.error(f"**{md(both[0])}** is chosen under both **{WIDGETS['categorical']}** and **{WIDGETS['numeric']}**; "
+             "keep it in one.")
+    st.stop()
+for k, chosen in (("categorical", categorical), ("numeric", numeric)):
+    chosen = [c for c in chosen if c in attrs]
+    if chosen:
+        settings[k] = tuple(chosen)
 refs, bad_refs = parse_reference(reference_text)
 problem = check_reference(refs, bad_refs, protected)
 if problem:
@@ -476,7 +498,8 @@ else:
                    column_config={"value": NUM4})
     sections.show_confusion(right, sections.confusion_table(o, result.classes), "Confusion matrix, all rows")
 if skipped:
-    st.caption("Chosen but not sliced by the audit: " + "; ".join(f"**{md(k)}**: {md(v)}" for k, v in skipped.items()))
+    st.caption("Chosen but not sliced by the audit: " + "; ".join(f"**{md(k)}**: {md(page_words(v))}"
+                                                                   for k, v in skipped.items()))
 
 # ----------------------------------------------------------------------------- findings, then every slice
 st.header("4 · Findings first")

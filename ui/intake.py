@@ -305,8 +305,14 @@ def pred_like_columns(table: Table, label: str) -> list[str]:
     return out
 
 
+def is_number_column(table: Table, c: str) -> bool:
+    """Whether column ``c`` holds numbers (the columns whose coding the page lets a user choose)."""
+    s = table.df[c]
+    return pd.api.types.is_numeric_dtype(s) and not pd.api.types.is_bool_dtype(s)
+
+
 def screen(table: Table, candidates: list[str], *, label: str | None = None, bins: int = 5,
-           max_levels: int = MAX_LEVELS) -> tuple[list[str], dict[str, str]]:
+           max_levels: int = MAX_LEVELS, categorical=(), numeric=()) -> tuple[list[str], dict[str, str]]:
     """Split attribute candidates into those the engine will slice and those it skips (with why).
 
     The decision is the engine's own: each column is profiled by
@@ -327,17 +333,21 @@ def screen(table: Table, candidates: list[str], *, label: str | None = None, bin
         else:
             rest.append(c)
     profiles = table.profiles
+    cat = set(categorical) & set(rest)
+    num = set(numeric) & set(rest) - cat
     for c in rest:
-        if c not in profiles:
-            profiles[c] = _profile_for_screen(table, c, profile_column)
-    chosen = [profiles[c] for c in rest]
+        if (c, c in cat) not in profiles:  # a column of codes is profiled as text, as the engine does
+            profiles[(c, c in cat)] = (profile_column(table.df[c], c, as_text=True) if c in cat
+                                       else _profile_for_screen(table, c, profile_column))
+    chosen = [profiles[(c, c in cat)] for c in rest]
     try:
-        encs = [fit_encoding(chosen, n_bins=bins, max_levels=max_levels)]
+        encs = [fit_encoding(chosen, n_bins=bins, max_levels=max_levels, categorical=cat, numeric=num)]
     except AuditInputError:  # one column cannot be encoded: fit one by one to say which and why
         encs = []
         for p in chosen:
             try:
-                encs.append(fit_encoding([p], n_bins=bins, max_levels=max_levels))
+                encs.append(fit_encoding([p], n_bins=bins, max_levels=max_levels, categorical=cat & {p.name},
+                                         numeric=num & {p.name}))
             except AuditInputError as exc:
                 skip[p.name] = str(exc).split(";")[0]
     fitted = {a.name for e in encs for a in e.attributes}

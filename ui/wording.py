@@ -14,6 +14,8 @@ WIDGETS = {
     "threshold": "Decision threshold",
     "bins": "Quantile bins per numeric attribute",
     "attributes": "Attributes to slice by",
+    "categorical": "Numbers that are codes (treat as categories)",
+    "numeric": "Numbers to bin even with few values",
     "metric": "Audited metric",
     "min_support": "Minimum rows per slice",
     "min_metric_support": "Minimum rows in the metric's denominator",
@@ -118,6 +120,13 @@ def check_reference(refs: dict[str, str], bad: list[str], protected: list[str]) 
 
 def _pairs(items):
     return [(a, b) for i, a in enumerate(items) for b in items[i + 1:]]
+
+
+def page_words(reason: str) -> str:
+    """An engine reason in the page's words: where it names the API's or the command line's
+    setting for codes, the page names its own widget."""
+    return re.sub(r"(?:list it |)with categorical=\[\.\.\.\](?: \(--categorical\))?",
+                  f"choose it under '{WIDGETS['categorical']}'", reason)
 
 
 def fmt(x, d=4) -> str:
