@@ -51,8 +51,9 @@ def generate(rows: int = 20_000, seed: int = SEED) -> pd.DataFrame:
     logit += np.select([housing == "rent", housing == "own"], [0.15, -0.2], 0.0)
     logit += -0.03 * np.minimum(tenure, 10)
     unseen = rng.normal(0.0, 0.4, rows)
-    # Income is missing for some web applications, drawn from a generator of its own so the other
-    # draws stay as they are. Leaving income blank is itself a sign of risk (+0.5 log-odds).
+    # Income is missing for some web applications, drawn from a generator of its own so the draws
+    # before it stay as they are (the identifiers' shuffle after it changes; Fissure skips them).
+    # Leaving income blank is itself a sign of risk (+0.5 log-odds).
     miss = (channel == "web") & (np.random.default_rng(seed + 1).random(rows) < 0.12)
     # Planted weakness 2 (a pair): young gig workers are riskier than the model knows.
     young_gig = (age == "18-24") & (employment == "gig")

@@ -427,7 +427,7 @@ def _run_group_kernel(codes, cards, cell, ll, br, groups, gcards, gpairs, n_clas
             np.multiply(v, gdt(cards[a]), out=v)
             np.add(v, codes[a], out=v, casting="unsafe")
     total = int(goffsets[-1])
-    c8 = cell if cell.dtype == np.int16 else cell.astype(np.int8, copy=False)  # K > 11: int16 cells
+    c8 = cell.astype(np.int8 if kk <= 127 else np.int16, copy=False)  # K > 11 classes: int16 cells
     if n_classes == 2:
         acc = _binary_kernel(gt, c8, ll, br, ga, gb, gcb, goffsets[:-1].copy(), total, nth, KERNEL_BLOCK)
     else:
