@@ -23,8 +23,8 @@ from ..errors import AuditInputError, shown
 from .auc import ExactAuc, hist_bins, score_histogram, slice_auc
 from .encoding import ID_MIN_DISTINCT, Encoding, choose_columns, fit_encoding, profile_column
 from .outcomes import (OutcomeSpec, check_columns, fit_outcomes, labelled_rows, need_columns, profile_outcomes)
-from .tally import (LOSS_SUMS, Tally, cell_codes, kernels_loading, load_kernels_early, plan_families, plan_triples,
-                    row_losses, tally, tally_numpy, tally_triples, use_compiled)
+from .tally import (LOSS_SUMS, Tally, cell_codes, plan_families, plan_triples, row_losses, tally, tally_numpy,
+                    tally_triples, use_compiled)
 
 #: Equal-width probability bins of the fairness module's calibration error.
 CALIBRATION_BINS = 10
@@ -164,11 +164,6 @@ def profile_source(source: Source, cfg, *, progress: Progress | None = None, kee
         acache: dict = {}
         a = len(cols)
         compiled = use_compiled(len(df), 1 + a + (a * (a - 1) // 2 if cfg.max_order >= 2 else 0))
-        if compiled and source.chunked:
-            # A large streamed table: the counting pass's kernels load in the background meanwhile,
-            # and this pass takes numpy's histogram until they are in (the same counts).
-            load_kernels_early()
-            compiled = not kernels_loading()
         cap = max(1000, cfg.max_levels + 1, ID_MIN_DISTINCT + 1)  # past it a text column is skipped anyway
         pc = [profile_column(df[c], c, as_text=c in cfg.categorical, cache=acache, compiled=compiled, cap=cap)
               for c in cols]

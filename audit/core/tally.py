@@ -22,7 +22,6 @@ plain numpy one (``np.bincount`` per family), the reference. Float sums agree to
 from __future__ import annotations
 
 import math
-import threading
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -55,41 +54,6 @@ def use_compiled(n_rows: int, n_families: int, kernel: str = "auto") -> bool:
     if kernel == "compiled":
         return numba_available()
     return n_rows * max(n_families, 1) >= COMPILED_MIN_WORK and numba_available()
-
-
-_LOADING: dict[str, threading.Thread] = {}
-
-
-def load_kernels_early() -> None:
-    """Start loading, in a background thread, the compiled kernels a large streamed audit's
-    counting pass calls first (the histogram, the row losses, the two-class tally), so the first
-    call does not wait for them: numba's first call imports its numpy support (and with it
-    SciPy's BLAS bindings) and loads each kernel from its cache, 0.3-0.5 s on this project's
-    machine, while the first pass reads the file. Once per process; results do not change."""
-    if "thread" in _LOADING or not numba_available():
-        return
-
-    def load() -> None:
-        try:
-            from . import kernels as k
-
-            z = np.zeros(8)
-            one = np.zeros(1, dtype=np.int64)
-            k.small_histogram(np.zeros(8, dtype=np.uint8), 256)
-            k._losses(np.zeros(8, dtype=np.int8), z, EPS)
-            k._binary_kernel(np.zeros((2, 8), dtype=np.uint16), np.zeros(8, dtype=np.int8), z, z, one, one + 1,
-                             one + 1, one, 1, 1, KERNEL_BLOCK)
-        except Exception:  # noqa: BLE001 - only a head start: the first real call loads what it needs
-            pass
-
-    _LOADING["thread"] = threading.Thread(target=load, name="fissure-load-kernels", daemon=True)
-    _LOADING["thread"].start()
-
-
-def kernels_loading() -> bool:
-    """Whether :func:`load_kernels_early`'s thread is still at work."""
-    t = _LOADING.get("thread")
-    return t is not None and t.is_alive()
 
 
 def row_losses(y: np.ndarray, score: np.ndarray, *, compiled: bool | None = None) -> tuple[np.ndarray, np.ndarray]:
