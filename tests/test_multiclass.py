@@ -291,3 +291,30 @@ def test_more_than_eleven_classes_count_every_cell(kernel, tmp_path):
         assert float(s["macro_f1"]) == pytest.approx(f1, abs=1e-12)
         assert int(chunked.slice(name)["n"]) == int(s["n"])
         assert float(chunked.slice(name)["macro_f1"]) == pytest.approx(float(s["macro_f1"]), abs=1e-12)
+
+
+def test_large_tables_check_probabilities_in_one_pass_and_still_name_the_bad_row():
+    # 200,000 rows take the compiled check; a bad row sends the table through the column checks,
+    # which name it as they do for a small table (no reference needed: the row is planted).
+    from audit.core.tally import numba_available
+
+    if not numba_available():
+        pytest.skip("numba not installed")
+    rng = np.random.default_rng(8)
+    n = 200_000
+    p = rng.dirichlet([2, 2, 2], n)
+    df = pd.DataFrame({"desk": rng.choice(["approve", "refer", "decline"], n), "region": rng.choice(["n", "s"], n),
+                       "p_a": p[:, 0], "p_r": p[:, 1], "p_d": p[:, 2]})
+    score = {"approve": "p_a", "refer": "p_r", "decline": "p_d"}
+    good = audit.run(df, label="desk", score=score)
+    top = np.array(["approve", "refer", "decline"])[p.argmax(axis=1)]
+    assert float(good.slice("region=n")["accuracy"]) == pytest.approx(
+        float((top == df["desk"].to_numpy())[df["region"].to_numpy() == "n"].mean()), abs=1e-12)
+    bad = df.copy()
+    bad.loc[123_456, "p_r"] = 0.9  # the row now sums to more than 1
+    with pytest.raises(AuditInputError, match="data row 123457"):
+        audit.run(bad, label="desk", score=score)
+    bad = df.copy()
+    bad.loc[77, "p_d"] = np.nan
+    with pytest.raises(AuditInputError, match="missing value at data row 78"):
+        audit.run(bad, label="desk", score=score)

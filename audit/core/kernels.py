@@ -382,6 +382,26 @@ def _group_triple_counts(gt, cell, pa, pb, pw, pstart, pend, gc, wc, off, total,
 
 
 @njit(parallel=True, cache=True, nogil=True)
+def probabilities_fit(P, tol):  # pragma: no cover - compiled
+    # One pass over a (classes × rows) probability matrix: how many values are missing or outside
+    # [0, 1], and how many rows do not sum to 1 within tol (the sum taken class by class, in
+    # order, as numpy's sum over the first axis does).
+    k, n = P.shape
+    bad = 0
+    off = 0
+    for i in prange(n):
+        s = 0.0
+        for c in range(k):
+            v = P[c, i]
+            if not (v >= 0.0 and v <= 1.0):
+                bad += 1
+            s += v
+        if abs(s - 1.0) > tol:
+            off += 1
+    return bad, off
+
+
+@njit(parallel=True, cache=True, nogil=True)
 def half_erfc(x):  # pragma: no cover - compiled
     # ½ erfc(x / √2) per element: the normal upper tail, with the C library's erfc.
     out = np.empty(x.shape[0])

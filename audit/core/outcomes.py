@@ -183,13 +183,15 @@ def profile_outcomes(df: pd.DataFrame, cfg, *, offset: int = 0, rows: np.ndarray
     prof.label_first = _first_rows(ycodes, ytext, 0, rows=False)
     cache: dict[str, Any] = {"y": (ycodes, ytext)}
     if isinstance(cfg.score, dict):
-        cols = [_check_score(df[c], c, where) for c in cfg.score.values()]
-        probs = np.stack(cols)  # classes × rows: each class's column stays contiguous
-        total = probs.sum(axis=0)
-        off = np.abs(total - 1.0) > PROB_SUM_TOLERANCE
-        if off.any():  # reported after the classes are known (a missing class explains it better)
-            i = _first_bad(off)
-            prof.sum_off = (where(i), float(total[i]))
+        probs = _probabilities_if_fit(df, list(cfg.score.values()))
+        if probs is None:  # something to report (or a small table): the checks that say which row
+            cols = [_check_score(df[c], c, where) for c in cfg.score.values()]
+            probs = np.stack(cols)  # classes × rows: each class's column stays contiguous
+            total = probs.sum(axis=0)
+            off = np.abs(total - 1.0) > PROB_SUM_TOLERANCE
+            if off.any():  # reported after the classes are known (a missing class explains it better)
+                i = _first_bad(off)
+                prof.sum_off = (where(i), float(total[i]))
         cache["probs"] = probs
     elif cfg.score is not None:
         cache["score"] = _check_score(df[cfg.score], cfg.score, where)
@@ -203,6 +205,23 @@ def profile_outcomes(df: pd.DataFrame, cfg, *, offset: int = 0, rows: np.ndarray
         prof.pred_first = {k: where(v) for k, v in _first_rows(pcodes, ptext, 0).items()}
         cache["pred"] = (pcodes, ptext)
     return prof, cache
+
+
+def _probabilities_if_fit(df: pd.DataFrame, names: list[str]) -> np.ndarray | None:
+    """The (classes × rows) probability matrix of a large table whose columns are floats, every
+    value in [0, 1] and every row summing to 1, checked in one compiled pass; ``None`` otherwise
+    (then the column-by-column checks run and name the first bad row)."""
+    from .tally import use_compiled
+
+    if not use_compiled(len(df), 40) or not all(df[c].dtype == np.float64 for c in names):
+        return None
+    from .kernels import probabilities_fit
+
+    probs = np.empty((len(names), len(df)))
+    for i, c in enumerate(names):
+        probs[i] = df[c].to_numpy()
+    bad, off = probabilities_fit(probs, PROB_SUM_TOLERANCE)
+    return probs if bad == 0 and off == 0 else None
 
 
 def _check_score(raw: pd.Series, name: str, where) -> np.ndarray:
