@@ -225,3 +225,18 @@ def test_unlabelled_rows_are_dropped_counted_and_reported(tmp_path):
     df.to_csv(path, index=False)
     chunked = audit.run(str(path), label="y", score="p", drop_unlabelled=True, chunk_rows=64)
     assert chunked.n_unlabelled == 3 and chunked.slices["n"].tolist() == res.slices["n"].tolist()
+
+
+def test_slice_table_columns_share_no_memory(demo_df):
+    # The slice table is built without copying its columns (speed), so no two of its columns may be
+    # one array: writing into one would change the other. Common practice for zero-copy frames.
+    from demo.routing import generate
+
+    for res in (audit.run(demo_df, label="delinquent", score="p_delinquent"),
+                audit.run(generate(rows=3000), label="desk",
+                          score={"approve": "p_approve", "refer": "p_refer", "decline": "p_decline"})):
+        arrays = [(c, res.slices[c].to_numpy()) for c in res.slices.columns
+                  if res.slices[c].dtype.kind in "fiub"]
+        for i, (a, x) in enumerate(arrays):
+            for b, y in arrays[i + 1:]:
+                assert not np.shares_memory(x, y), (a, b)
