@@ -45,10 +45,10 @@ from typing import Any, Callable
 import pandas as pd
 
 from ..errors import AuditInputError, shown
-from .outcomes import labelled_rows
-from .stream import (CsvSource, Evidence, Fitted, ParquetSource, Source, SourceInfo, _digest, _expand, _triples,
-                     csv_column_types, fit_evidence, needed_columns, profile_source, read_parquet_part, tally_part)
-from .tally import Tally, TriplePlan, cell_codes, plan_triples, row_losses
+from .stream import (Evidence, Fitted, ParquetSource, Source, SourceInfo, _digest, _expand,
+                     csv_column_types, fit_evidence, needed_columns, profile_source, read_parquet_part, tally_part,
+                     triple_part)
+from .tally import Tally, TriplePlan, plan_triples
 
 #: Rows per part when ``chunk_rows`` is not given (a part is read in chunks of this many rows too).
 PART_ROWS = 1_000_000
@@ -297,26 +297,13 @@ def _second_pass_task(plan: Plan, index: int, fitted: Fitted, cfg, offset: int, 
 
 def _third_pass_task(plan: Plan, index: int, fitted: Fitted, cfg, offset: int, triples: TriplePlan,
                      kernel: str) -> Tally | None:
-    """The planned triples of one part (the rows prepared as ``stream.tally_source``'s third pass
-    prepares them, then the same ``tally_triples`` kernel)."""
+    """The planned triples of one part, chunk by chunk through ``stream.triple_part``."""
     src = PartSource(plan, plan.parts[index], offset)
     total = None
-    k = fitted.outcomes.n_classes
     for off, df in src.chunks(columns=needed_columns(fitted, cfg)):
-        if len(df) == 0:
-            continue
-        ok = labelled_rows(df, cfg, offset=off)
-        if ok is not None:
-            df = df[ok]
-        out = fitted.outcomes.apply(df, None)
-        rows = {"codes": fitted.encoding.apply(df, None, offset=off),
-                "cell": cell_codes(out.y, out.yhat, k), "ll": None, "br": None}
-        if out.score is not None:
-            rows["ll"], rows["br"] = row_losses(out.y, out.score)
-        elif out.losses is not None:
-            rows["ll"], rows["br"] = out.losses
-        t = _triples(rows, fitted, cfg, triples, kernel)
-        total = t if total is None else total + t
+        t = triple_part(df, fitted, cfg, triples, offset=off, kernel=kernel)
+        if t is not None:
+            total = t if total is None else total + t
     return total
 
 

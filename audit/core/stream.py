@@ -425,25 +425,29 @@ def tally_source(source: Source, fitted: Fitted, cfg, *, keep: dict | None = Non
         plan = plan_triples(total, fitted.cards, min_rows=cfg.min_support)
         tri = None
         for offset, df in source.chunks(columns=needed_columns(fitted, cfg)):
-            if len(df) == 0:
-                continue
-            rows_ok = labelled_rows(df, cfg, offset=offset)
-            if rows_ok is not None:
-                df = df[rows_ok]
-            rows: dict = {}
-            out = fitted.outcomes.apply(df, None)
-            rows["codes"] = fitted.encoding.apply(df, None, offset=offset)
-            k = fitted.outcomes.n_classes
-            rows["cell"] = cell_codes(out.y, out.yhat, k)
-            rows["ll"] = rows["br"] = None
-            if out.score is not None:
-                rows["ll"], rows["br"] = row_losses(out.y, out.score)
-            elif out.losses is not None:
-                rows["ll"], rows["br"] = out.losses
-            part = _triples(rows, fitted, cfg, plan, kernel)
-            tri = part if tri is None else tri + part
+            part = triple_part(df, fitted, cfg, plan, offset=offset, kernel=kernel)
+            if part is not None:
+                tri = part if tri is None else tri + part
         total = total.joined(tri)
     return total
+
+
+def triple_part(df: pd.DataFrame, fitted: Fitted, cfg, plan, *, offset: int = 0, kernel: str = "auto") -> Tally | None:
+    """One chunk of the third pass (here and on a cluster's workers): unlabelled rows left out,
+    the rest encoded and their planned triples tallied; ``None`` for a chunk with no rows."""
+    if len(df) == 0:
+        return None
+    rows_ok = labelled_rows(df, cfg, offset=offset)
+    if rows_ok is not None:
+        df = df[rows_ok]
+    out = fitted.outcomes.apply(df, None)
+    rows = {"codes": fitted.encoding.apply(df, None, offset=offset),
+            "cell": cell_codes(out.y, out.yhat, fitted.outcomes.n_classes), "ll": None, "br": None}
+    if out.score is not None:
+        rows["ll"], rows["br"] = row_losses(out.y, out.score)
+    elif out.losses is not None:
+        rows["ll"], rows["br"] = out.losses
+    return _triples(rows, fitted, cfg, plan, kernel)
 
 
 def _triples(rows: dict, fitted: Fitted, cfg, plan, kernel: str) -> Tally:
