@@ -84,6 +84,20 @@ def mask_for(df: pd.DataFrame, column: str, value: str) -> np.ndarray:
     return (s.astype(object).where(s.notna(), None).map(lambda v: None if v is None else str(v)) == value).to_numpy()
 
 
+def credit_files(credit: pd.DataFrame, d, *, row_group: int, part_row_group: int | None = None) -> dict[str, str]:
+    """The credit table as files a streamed or distributed run reads: one CSV, one Parquet file in
+    row groups of ``row_group``, a folder of 1,500-row Parquet parts, and a glob of CSV files."""
+    csv = d / "credit.csv"
+    credit.to_csv(csv, index=False)
+    pq = d / "credit.parquet"
+    credit.to_parquet(pq, row_group_size=row_group)
+    part = d / "parts"
+    part.mkdir()
+    for i, lo in enumerate(range(0, len(credit), 1500)):
+        credit.iloc[lo:lo + 1500].to_parquet(part / f"part-{i}.parquet", row_group_size=part_row_group)
+    return {"csv": str(csv), "parquet": str(pq), "dir": str(part), "glob": str(d / "cred*.csv")}
+
+
 def slice_mask(df: pd.DataFrame, row) -> np.ndarray:
     m = np.ones(len(df), bool)
     for a, v in (("attribute_1", "value_1"), ("attribute_2", "value_2")):

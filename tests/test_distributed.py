@@ -18,6 +18,7 @@ pytest.importorskip("distributed")
 import audit  # noqa: E402
 from audit.core.distributed import ClusterError, start_local_cluster  # noqa: E402
 from audit.faces.cli import main  # noqa: E402
+from conftest import credit_files  # noqa: E402
 from test_stream import SETTINGS, _same  # noqa: E402
 
 
@@ -35,17 +36,10 @@ def client(tmp_path_factory):
 @pytest.fixture(scope="module")
 def files(credit, tmp_path_factory):
     d = tmp_path_factory.mktemp("dist")
-    csv = d / "credit.csv"
-    credit.to_csv(csv, index=False)
-    pq = d / "credit.parquet"
-    credit.to_parquet(pq, row_group_size=250)
-    part = d / "parts"
-    part.mkdir()
-    for i, lo in enumerate(range(0, len(credit), 1500)):
-        credit.iloc[lo:lo + 1500].to_parquet(part / f"part-{i}.parquet", row_group_size=400)
+    out = credit_files(credit, d, row_group=250, part_row_group=400)
     semi = d / "semicolon.csv"
     credit.to_csv(semi, index=False, sep=";")
-    return {"csv": str(csv), "parquet": str(pq), "dir": str(part), "glob": str(d / "cred*.csv"), "semi": str(semi)}
+    return {**out, "semi": str(semi)}
 
 
 @pytest.fixture(scope="module")

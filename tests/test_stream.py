@@ -13,23 +13,14 @@ from sklearn.metrics import roc_auc_score
 import audit
 from audit.core.stream import FrameSource, fit, tally_chunk
 from audit.settings import make_config
-from conftest import slice_mask
+from conftest import credit_files, slice_mask
 
 SETTINGS = dict(label="Status", score="p_bad", positive="bad", protected=["Home", "Marital"], favorable="good")
 
 
 @pytest.fixture(scope="module")
 def files(credit, tmp_path_factory):
-    d = tmp_path_factory.mktemp("stream")
-    csv = d / "credit.csv"
-    credit.to_csv(csv, index=False)
-    pq = d / "credit.parquet"
-    credit.to_parquet(pq, row_group_size=500)
-    part = d / "parts"
-    part.mkdir()
-    for i, lo in enumerate(range(0, len(credit), 1500)):
-        credit.iloc[lo:lo + 1500].to_parquet(part / f"part-{i}.parquet")
-    return {"csv": str(csv), "parquet": str(pq), "dir": str(part), "glob": str(d / "cred*.csv")}
+    return credit_files(credit, tmp_path_factory.mktemp("stream"), row_group=500)
 
 
 @pytest.fixture(scope="module")
