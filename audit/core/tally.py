@@ -572,13 +572,17 @@ def _grouped_triple_counts(codes, cards, cell, plan: TriplePlan, offsets, limit:
             np.multiply(v, gdt(cards[a]), out=v)
             np.add(v, codes[a], out=v, casting="unsafe")
     # gtr runs through the pairs of groups in order, each pair's third groups contiguous.
-    pairs = list(dict.fromkeys((a, b) for a, b, _ in gtr))
-    first = {p: next(q for q, t in enumerate(gtr) if t[:2] == p) for p in pairs}
-    ends = [first[p] + sum(1 for t in gtr if t[:2] == p) for p in pairs]
+    pairs, first, ends = [], [], []
+    for q, (a, b, _) in enumerate(gtr):
+        if not pairs or pairs[-1] != (a, b):
+            pairs.append((a, b))
+            first.append(q)
+            ends.append(q)
+        ends[-1] = q + 1
     i64 = lambda xs: np.array(xs, dtype=np.int64)  # noqa: E731
     acc = _group_triple_counts(gt, cell.astype(np.int8, copy=False), i64([p[0] for p in pairs]),
                                i64([p[1] for p in pairs]), i64([gcards[p[1]] for p in pairs]),
-                               i64([first[p] for p in pairs]), i64(ends), i64([t[2] for t in gtr]),
+                               i64(first), i64(ends), i64([t[2] for t in gtr]),
                                i64([gcards[t[2]] for t in gtr]), goff[:-1].copy(), int(goff[-1]), nth, KERNEL_BLOCK)
     acc = acc.sum(axis=0, dtype=np.int64).reshape(-1, kk)  # the threads' int32 tables, summed as int64
     out = np.zeros((int(offsets[-1]), kk), dtype=np.int64)
