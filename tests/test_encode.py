@@ -101,3 +101,27 @@ def test_a_fitted_encoding_applies_to_other_chunks_and_refuses_unseen_values():
         enc.apply(pd.DataFrame({"g": ["x", "z"], "v": [1.0, 2.0]}))
     with pytest.raises(AuditInputError, match=r"value '\(missing\)' at data row 1"):
         enc.apply(pd.DataFrame({"g": [None], "v": [1.0]}))
+
+
+def test_text_columns_profiled_in_parts_state_what_the_parts_know():
+    # Two 1,500-row parts profiled with a 1,000-value cap keep only their distinct counts.
+    ids = pd.Series([f"c{i}" for i in range(3000)])
+    p = profile_column(ids[:1500], "id", cap=1000) + profile_column(ids[1500:], "id", cap=1000)
+    assert p.distinct_bounds == (1500, 3000)
+    enc = fit_encoding([p])
+    # Identifier rule (encoding.ID_MIN_DISTINCT, ID_SHARE): more than 20, at least 90% of 3,000 rows = 2,700.
+    assert enc.skipped["id"] == ("at least 1500 and at most 3000 distinct values in 3000 rows (counted chunk by "
+                                 "chunk), more than max_levels=100: an identifier or too varied to slice")
+    # Listed as categorical, the identifier rule does not apply; too many levels does.
+    enc = fit_encoding([p], categorical=["id"])
+    assert enc.skipped["id"] == "at least 1500 distinct values, more than max_levels=100; bin or group it first"
+    # A part with 2,800 distinct of the 3,000 rows meets the rule by itself.
+    q = profile_column(ids[:2800], "id", cap=1000) + profile_column(ids[2800:], "id", cap=1000)
+    assert fit_encoding([q]).skipped["id"] == "looks like an identifier (at least 2800 distinct values in 3000 rows)"
+    # One part alone is counted exactly: the in-memory wording.
+    assert fit_encoding([profile_column(ids, "id", cap=1000)]).skipped["id"] == \
+        "looks like an identifier (3000 distinct values in 3000 rows)"
+    # Past TEXT_CAP a profile keeps no values but still counts them (was "more than 1 distinct values").
+    many = pd.Series([f"c{i}" for i in range(100_001)])
+    assert fit_encoding([profile_column(many, "id")]).skipped["id"] == \
+        "looks like an identifier (100001 distinct values in 100001 rows)"

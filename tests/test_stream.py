@@ -214,3 +214,34 @@ def test_a_source_dropped_unread_stops_its_digest(files):
     gc.collect()
     digest._thread.join(timeout=10)
     assert digest._stop.is_set() and not digest._thread.is_alive()
+
+
+def test_a_chunked_run_words_skipped_text_columns_as_the_in_memory_run_or_says_at_least(credit, tmp_path):
+    # The credit table with a unique application reference and a 1,200-valued branch code: the
+    # in-memory run counts distinct values exactly; a chunk with more than 1,000 keeps only its
+    # count, so a chunked run knows "at least" (the most one chunk held) and "at most" (their sum).
+    n = len(credit)
+    table = credit.assign(application_ref=[f"HV-{i:05d}" for i in range(n)],
+                          branch_code=[f"B{i % 1200:04d}" for i in range(n)])
+    path = tmp_path / "credit_ids.csv"
+    table.to_csv(path, index=False)
+    truth = {c: int(table[c].nunique()) for c in ("application_ref", "branch_code")}  # reference: pandas nunique
+    assert truth == {"application_ref": 4454, "branch_code": 1200}
+    in_memory = audit.run(pd.read_csv(path), **SETTINGS).skipped
+    assert in_memory["application_ref"] == "looks like an identifier (4454 distinct values in 4454 rows)"
+    assert in_memory["branch_code"] == "1200 distinct values, more than max_levels=100; bin or group it first"
+    # Chunks of at most 1,000 rows keep their values: the counts add up exactly, the same reasons.
+    assert audit.run(str(path), chunk_rows=1000, **SETTINGS).skipped == in_memory
+    # A 4,200-row chunk alone holds more than 90% of 4,454 rows as distinct references: the
+    # identifier rule (more than 20 distinct values, at least 90% as many as rows) holds for sure.
+    big = audit.run(str(path), chunk_rows=4200, **SETTINGS).skipped
+    assert big["application_ref"] == "looks like an identifier (at least 4200 distinct values in 4454 rows)"
+    assert big["branch_code"] == "at least 1200 distinct values, more than max_levels=100; bin or group it first"
+    # 1,500-row chunks: between 1,500 and 4,454 references, either side of the rule's 4,009; the
+    # column is too varied to slice either way, and the reason says so without claiming an identifier.
+    # The branch codes' chunks add up to at most 3 x 1,200 < 4,009: too many levels, not an identifier.
+    mid = audit.run(str(path), chunk_rows=1500, **SETTINGS).skipped
+    assert mid["application_ref"] == ("at least 1500 and at most 4454 distinct values in 4454 rows (counted chunk by "
+                                      "chunk), more than max_levels=100: an identifier or too varied to slice")
+    assert mid["branch_code"] == big["branch_code"]
+    assert {k: v for k, v in mid.items() if k not in truth} == {k: v for k, v in in_memory.items() if k not in truth}

@@ -66,9 +66,12 @@ class ColumnProfile:
     sample: list[np.ndarray] = field(default_factory=list)
     sample_size: int = 0
     #: Distinct text values seen when ``counts`` was not kept (too many to slice); exact for one
-    #: chunk, a lower bound once chunks are added.
+    #: chunk, a lower bound once chunks are added (the most any one part held).
     distinct_seen: int = 0
     distinct_exact: bool = True
+    #: With ``counts`` not kept: the parts' distinct values added up, an upper bound on the
+    #: union's (0 = not recorded).
+    distinct_sum: int = 0
 
     def __add__(self, other: "ColumnProfile") -> "ColumnProfile":
         if self.kind != other.kind:
@@ -79,9 +82,11 @@ class ColumnProfile:
         if self.kind == "text":
             if self.counts is None or other.counts is None:
                 out.counts = None
-                seen = [x.distinct_seen if x.counts is None else len(x.counts) for x in (self, other) if x.n]
-                out.distinct_seen = max(seen) if seen else 0
-                out.distinct_exact = len(seen) <= 1 and all(x.distinct_exact for x in (self, other) if x.n)
+                parts = [x for x in (self, other) if x.n]
+                out.distinct_seen = max((x.distinct_bounds[0] for x in parts), default=0)
+                out.distinct_exact = len(parts) <= 1 and all(x.distinct_exact for x in parts)
+                highs = [x.distinct_bounds[1] for x in parts]
+                out.distinct_sum = 0 if None in highs else sum(highs)
             else:
                 merged = dict(self.counts)
                 for k, v in other.counts.items():
@@ -89,6 +94,7 @@ class ColumnProfile:
                 out.counts = merged if len(merged) <= TEXT_CAP else None
                 if out.counts is None:
                     out.distinct_seen, out.distinct_exact = len(merged), True
+                    out.distinct_sum = len(merged)
             return out
         out.distinct = None if self.distinct is None or other.distinct is None else self.distinct | other.distinct
         if out.distinct is not None and len(out.distinct) > MAX_INTEGER_LEVELS + 1:
@@ -112,6 +118,20 @@ class ColumnProfile:
                 return self.distinct_seen if self.distinct_exact and self.distinct_seen else None
             return sum(1 for c in self.counts.values() if c > 0)
         return None if self.distinct is None else len(self.distinct)
+
+    @property
+    def distinct_bounds(self) -> tuple[int, int | None]:
+        """A text column's distinct non-missing values as ``(at least, at most)``; equal when
+        known exactly, ``at most`` None when no bound was recorded. Parts profiled apart (chunks)
+        that each held too many values to list give the most one part held and the parts' sum."""
+        nu = self.n_distinct
+        if nu is not None:
+            return nu, nu
+        # A profile that dropped its values without counting them (one built outside
+        # profile_column) had more than TEXT_CAP: the only reason profile_column drops them uncounted.
+        low = self.distinct_seen or (TEXT_CAP + 1 if self.n > self.n_missing else 0)
+        high = min(self.distinct_sum, self.n - self.n_missing) if self.distinct_sum else None
+        return low, high
 
 
 def _text_of(u) -> str:
@@ -154,7 +174,7 @@ def profile_column(s: pd.Series, name: str, *, as_text: bool = False, cache: dic
         raw, uniques = pd.factorize(s, use_na_sentinel=True)
         if len(uniques) > cap:
             p = ColumnProfile(name, "text", len(raw), int((raw < 0).sum()), counts=None)
-            p.distinct_seen = len(uniques)
+            p.distinct_seen = p.distinct_sum = len(uniques)
             return p
     if is_numeric(s) and not as_text:
         v = s.to_numpy(dtype=float)
@@ -177,6 +197,7 @@ def profile_column(s: pd.Series, name: str, *, as_text: bool = False, cache: dic
     p = ColumnProfile(name, "text", len(raw), n_missing)
     if len(text) > TEXT_CAP:
         p.counts = None
+        p.distinct_seen = p.distinct_sum = len({t for t, c in zip(text, counts.tolist()) if c})
     else:
         merged: dict[str, int] = {}
         for t, c in zip(text, counts.tolist()):
@@ -426,17 +447,39 @@ def fit_encoding(profiles: Sequence[ColumnProfile], *, n_bins: int = 5, bin_edge
                     continue
             attrs.append(_binned(p, None, n_bins))
             continue
-        if nu is None:
-            skipped[col] = f"looks like an identifier (more than {max(p.distinct_seen, 1):,} distinct values)"
-            continue
-        if nu > ID_MIN_DISTINCT and nu >= ID_SHARE * n_nonmiss and col not in categorical:
-            skipped[col] = f"looks like an identifier ({nu} distinct values in {n_nonmiss} rows)"
-            continue
-        if nu > max_levels:
-            skipped[col] = f"{nu} distinct values, more than max_levels={max_levels}; bin or group it first"
+        reason = _text_skip(p, n_nonmiss, max_levels, forced=col in categorical)
+        if reason:
+            skipped[col] = reason
             continue
         attrs.append(_categorical(p, "category"))
     return Encoding(tuple(attrs), skipped)
+
+
+def _text_skip(p: ColumnProfile, n_nonmiss: int, max_levels: int, *, forced: bool) -> str | None:
+    """Why a text column is skipped (None: it is sliced). The identifier rule: more than
+    ``ID_MIN_DISTINCT`` distinct values, at least ``ID_SHARE`` as many as non-missing rows (unless
+    listed as categorical); then at most ``max_levels`` values. A count not known exactly (a
+    chunked read keeps no values of a column with too many) is stated as "at least N", and the
+    identifier rule is claimed only when its lower bound meets it."""
+    low, high = p.distinct_bounds
+    exact = low == high
+    count = f"{low}" if exact else f"at least {low}"
+
+    def meets(k):
+        return k is None or (k > ID_MIN_DISTINCT and k >= ID_SHARE * n_nonmiss)
+
+    if not forced and meets(low):
+        return f"looks like an identifier ({count} distinct values in {n_nonmiss} rows)"
+    if forced or not meets(high):
+        if low > max_levels:
+            return f"{count} distinct values, more than max_levels={max_levels}; bin or group it first"
+        if p.counts is None:  # only when max_levels is above what a profile lists
+            return f"{count} distinct values, more than the {TEXT_CAP} a profile lists; bin or group it first"
+        return None
+    # The bounds straddle the identifier rule; the column is skipped as too varied either way.
+    most = "" if high is None else f" and at most {high}"
+    return (f"at least {low}{most} distinct values in {n_nonmiss} rows (counted chunk by chunk), more than "
+            f"max_levels={max_levels}: an identifier or too varied to slice")
 
 
 _ID_WORDS = ("id", "key", "number", "no", "num", "nr", "rownames", "index", "idx", "account", "uuid", "ref")
