@@ -223,3 +223,67 @@ def test_triples_counts_in_the_terminal_the_summary_and_the_report(triples_run):
             assert any(x.startswith(f"  {f['finding_rank']}. {f['slice']}  [") for x in stdout.splitlines())
     for name in list(three) + list(echoes3[:5]):
         assert name.count(" & ") == 2 and name in _words(raw)
+
+
+def test_a_triples_report_folds_echoes_under_their_findings_and_counts_them(triples_run, demo_df):
+    import audit
+
+    work, _ = triples_run
+    raw = (work / "out" / "report.html").read_text(encoding="utf-8")
+    sl = _csv(work / "out" / "slices.csv")
+    flagged = sl[sl["flagged"] == "true"].assign(fr=lambda d: d["flag_rank"].astype(int))
+    counts = _echo_counts(sl)
+    # the same audit in this process: AuditResult.findings() counts the echoes slices.csv holds
+    res = audit.run(demo_df, label="delinquent", score="p_delinquent", max_order=3)
+    found = res.findings()
+    assert dict(zip(found["slice"], found["echoes"])) == {f: counts.get(f, 0) for f in found["slice"]}
+    assert sum(counts.values()) == len(flagged) - len(found)
+    echoes3 = flagged[(flagged["order"] == "3") & (flagged["finding"] == "false")]
+    assert len(echoes3) > 100  # the demo with triples: hundreds of triple echoes to fold
+    find = _section(raw, "findings", "fairness")
+    # the findings table: each finding once, worst first, with its echo count
+    table = find[find.index("id='findings-table'"):find.index("</table>", find.index("id='findings-table'"))]
+    rows = [_words(r) for r in table.split("<tr>")[2:]]
+    assert len(rows) == len(found)
+    for row, (_, f) in zip(rows, found.iterrows()):
+        assert row.startswith(f"{int(f['finding_rank'])} {int(f['flag_rank'])} {f['slice']} ")
+        assert row.endswith(f" {f['echoes']:,}")
+    for _, f in found.iterrows():
+        name, i = f["slice"], int(f["finding_rank"])
+        mine = flagged[flagged["echo_of"] == name]
+        if not len(mine):
+            assert f"id='echoes-{i}'" not in find
+            continue
+        block = find[find.index(f"<details class='fold' id='echoes-{i}'>"):]
+        block = block[:block.index("</details>")]
+        assert f"Finding {i}, {name}: {len(mine)} echo(es) folded under it" in _words(block)
+        tables = block.split("<table")[1:]
+        three = mine[mine["order"] == "3"]
+        two = mine[mine["order"] != "3"]
+        # echoes of one or two attributes one by one, as a pairs run lists them
+        if len(two):
+            names = [_words(r.split("</td>")[1]) for r in tables[0].split("<tr>")[2:]]
+            assert names == two.sort_values("fr")["slice"].tolist()
+        # triples counted by the slice that explains each: the counts and flag ranks of slices.csv
+        if len(three):
+            assert f"{len(three):,} of them are triples of values" in _words(block)
+            cells = [[_words(c) for c in r.split("</td>")[:-1]] for r in tables[-1].split("<tr>")[2:]]
+            want = three.groupby("explained_by")["fr"].agg(["size", "min", "max"])
+            assert {c[0] for c in cells} == set(want.index)
+            for c in cells:
+                w = want.loc[c[0]]
+                assert int(c[1].replace(",", "")) == w["size"]
+                assert c[2] == (f"{w['min']}–{w['max']}" if w["size"] > 1 else str(w["min"]))
+                best = three[three["explained_by"] == c[0]].sort_values("fr")["slice"].iloc[0]
+                assert c[3] == best
+            assert sum(int(c[1].replace(",", "")) for c in cells) == len(three)
+            assert len(cells) < len(three)  # folded: fewer rows than triples
+    # every flagged slice by flag rank, except the triple echoes (counted above, all in slices.csv)
+    full = find[find.index("id='all-flagged'"):]
+    full = full[:full.index("</details>")]
+    assert f"the {len(echoes3)} triple echo(es) are counted under their findings above" in _words(full)
+    ranks = [int(_words(r.split("</td>")[0])) for r in full.split("<tr>")[2:]]
+    assert ranks == sorted(set(flagged["fr"]) - set(echoes3["flag_rank"].astype(int)))
+    # not a flat list: section 5's tables hold fewer rows than there are flagged slices (a triple
+    # echo is named only as its group's best-ranked, or as what explains another echo)
+    assert find.count("<tr>") - find.count("<table") < len(flagged)

@@ -481,9 +481,12 @@ def _opening_findings(result, groups, limit: int = 20) -> str:
         fold = ""
         if len(ech):
             # the first few by flag rank: the opening stays about one printed page; section 5 lists them all
+            # (a triples run's triple echoes counted there by what explains them)
+            where = (" (section 5 lists those of one or two attributes and counts the triples; slices.csv lists "
+                     "every one)" if (ech["order"] == 3).any() else " (all in section 5)")
             fold = (f"<details class='fold'><summary>{len(ech)} echo(es) folded under it</summary>"
                     f"<span class='echo-names'>{_echo_names(ech, limit=6)}"
-                    + (" (all in section 5)" if len(ech) > 6 else "") + "</span></details>")
+                    + (where if len(ech) > 6 else "") + "</span></details>")
         items.append(f"<li><b>{e(r['slice'])}</b> ({int(r['n']):,} rows): {e(m.title)} {_f(r['metric_value'])} "
                      f"against {_f(r['rest_value'])} for the rest; slice − rest {_f(r['diff'])}, "
                      f"{_adj_words(result)} [{_f(r['diff_low_adj'])}, {_f(r['diff_high_adj'])}]"
@@ -538,28 +541,56 @@ def _findings_html(result, groups, flagged, lvl: int, top: int) -> str:
     for r, ech in groups:
         if not len(ech):
             continue
+        three = (ech["order"] == 3).to_numpy()
         erows = [[str(int(x["flag_rank"])), e(x["slice"]), e(x["explained_by"]), f"{int(x['n']):,}",
                   _f(x["metric_value"]), f"{_f(x['diff'])} [{_f(x['diff_low_adj'])}, {_f(x['diff_high_adj'])}]",
-                  _p(x["q_value"])] for _, x in ech.iterrows()]
+                  _p(x["q_value"])] for _, x in ech[~three].iterrows()]
+        body = (_table(["flag rank", "echo", "explained by", "n", m.title, f"slice − rest [{adj}]", "adjusted p"],
+                       erows, num_cols=(0, 3, 4, 6)) if erows else "")
         out.append(f"<details class='fold' id='echoes-{int(r['finding_rank'])}'><summary>Finding "
                    f"{int(r['finding_rank'])}, {e(r['slice'])}: {len(ech)} echo(es) folded under it</summary>"
-                   + _table(["flag rank", "echo", "explained by", "n", m.title, f"slice − rest [{adj}]",
-                             "adjusted p"], erows, num_cols=(0, 3, 4, 6)) + "</details>")
-    shown = flagged.head(top)
+                   + body + (_triples_fold(ech[three], r["slice"], adj) if three.any() else "") + "</details>")
+    # Triples that are echoes are counted under their findings above, not listed again one by one.
+    folded3 = flagged["order"] == 3
+    folded3 = folded3 & ~flagged["finding"].astype(bool) if "finding" in flagged.columns else folded3 & False
+    listed = flagged[~folded3]
+    shown = listed.head(top)
     frows = []
     for _, r in shown.iterrows():
         frows.append([str(int(r["flag_rank"])), e(r["slice"]), e(role_words(r, finding_rank)), f"{int(r['n']):,}",
                       _f(r["metric_value"]), f"[{_f(r['metric_low'])}, {_f(r['metric_high'])}]", _f(r["rest_value"]),
                       f"{_f(r['diff'])} [{_f(r['diff_low'])}, {_f(r['diff_high'])}]",
                       f"[{_f(r['diff_low_adj'])}, {_f(r['diff_high_adj'])}]", _p(r["q_value"])])
-    out.append(f"<details class='fold' id='all-flagged'><summary>Every flagged slice by flag rank "
-               f"({len(shown)} of {len(flagged)} shown), with its role</summary>"
+    what = (f"Every finding and every flagged slice of one or two attributes by flag rank ({len(shown)} of "
+            f"{len(flagged)} flagged shown; the {int(folded3.sum())} triple echo(es) are counted under their "
+            f"findings above), with its role" if folded3.any() else
+            f"Every flagged slice by flag rank ({len(shown)} of {len(flagged)} shown), with its role")
+    out.append(f"<details class='fold' id='all-flagged'><summary>{what}</summary>"
                + _table(["flag rank", "slice", "role", "n", m.title, f"{lvl}% interval", "rest",
                          f"slice − rest [{lvl}% interval]", adj, "adjusted p"], frows, num_cols=(0, 3, 4, 6, 9))
                + "</details>")
-    if len(flagged) > top:
+    if len(flagged) > len(shown):
         out.append(f"<p class='muted'>All {len(flagged)} flagged slices are listed in slices.csv.</p>")
     return "".join(out)
+
+
+def _triples_fold(tri, finding: str, adj: str) -> str:
+    """The triples of values among a finding's echoes, counted by the flagged slice that explains
+    each (one row per explaining slice, in order of its triples' best flag rank): a triples run
+    folds tens of triples under one finding, most of them the finding or one of its echoes with a
+    third value added."""
+    via = tri["explained_by"].where(tri["explained_by"].astype(str) != "", finding)
+    rows = []
+    for name, g in tri.groupby(via.to_numpy(), sort=False):  # tri is by flag rank: first seen = best ranked
+        best = g.iloc[0]
+        ranks = g["flag_rank"].astype(int)
+        rows.append([e(name), f"{len(g):,}", f"{ranks.min()}–{ranks.max()}" if len(g) > 1 else str(ranks.min()),
+                     e(best["slice"]),
+                     f"{_f(best['diff'])} [{_f(best['diff_low_adj'])}, {_f(best['diff_high_adj'])}]"])
+    return (f"<p class='triples-fold'>{len(tri):,} of them are triples of values, counted here by the flagged slice "
+            f"that explains each; slices.csv lists every one with its flag rank and role.</p>"
+            + _table(["explained by", "triples", "flag ranks", "best-ranked of them", f"its slice − rest [{adj}]"],
+                     rows, num_cols=(1, 2)))
 
 
 def _section(key: str, body: str) -> str:
