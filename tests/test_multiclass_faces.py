@@ -150,3 +150,90 @@ def test_neutralised_header_only_when_it_looks_like_a_formula():
 
     out = frame_csv(pd.DataFrame({"n": [1], "=cmd": ["-x"], "-0.5": [2]})).decode()
     assert out.splitlines()[0] == "n,'=cmd,-0.5"
+
+
+def _steered(fav, seed=5, n=3000):
+    """Three classes, the favourable set ``fav`` predicted for each branch's rows by its own rates
+    (seeded): P(predicted in fav | true in fav) and P(predicted in fav | true not in fav) are 0.8 and
+    0.2 in 'north', 0.55 and 0.05 in 'south' (the favourable outcome given less often to every
+    true outcome), 0.95 and 0.45 in 'east' (more often)."""
+    rng = np.random.default_rng(seed)
+    rates = {"north": (0.8, 0.2), "south": (0.55, 0.05), "east": (0.95, 0.45)}
+    others = [c for c in CLASSES if c not in fav]
+    rows = []
+    for branch, (tpr, fpr) in rates.items():
+        y = rng.choice(CLASSES, n, p=[0.4, 0.3, 0.3])
+        in_f = np.isin(y, fav)
+        to_f = rng.random(n) < np.where(in_f, tpr, fpr)
+        pred = np.where(to_f, np.where(in_f, y, rng.choice(list(fav), n)),
+                        np.where(in_f, rng.choice(others, n), y))
+        rows.append(pd.DataFrame({"outcome": y, "decision": pred, "branch": branch}))
+    return pd.concat(rows, ignore_index=True)
+
+
+@pytest.mark.parametrize("fav", [("approve",), ("approve", "refer")])
+def test_three_class_fairness_directions_follow_the_definitions(fav):
+    import html as html_mod
+    import re
+
+    from audit.faces.prose import fairness_findings, finding_text
+
+    df = _steered(fav)
+    res = audit.run(df, label="outcome", pred="decision", protected="branch", favorable=list(fav),
+                    reference={"branch": "north"}, max_order=1)
+    fr = res.fairness
+    assert fr.favorable_is_positive is None  # no positive class among three: the favourable set plays it
+    assert fr.favorable == " or ".join(fav)
+    found = fairness_findings(res)
+    in_f, to_f = df["outcome"].isin(fav).to_numpy(), df["decision"].isin(fav).to_numpy()
+    b = df["branch"].to_numpy()
+
+    def rates(g):
+        # reference: scikit-learn, one versus rest for the favourable set
+        m = b == g
+        return {"selection": to_f[m].mean(), "tpr": skm.recall_score(in_f[m], to_f[m]),
+                "fpr": 1 - skm.recall_score(~in_f[m], ~to_f[m]), "ppv": skm.precision_score(in_f[m], to_f[m])}
+
+    ref = rates("north")
+    fav_words, other_words = " or ".join(fav), f"other than {' or '.join(fav)}"
+    for group in ("south", "east"):
+        got = rates(group)
+        mine = found[(found["group"] == group) & (found["criterion"] != "four_fifths")].set_index("criterion")
+        assert set(mine.index) == {"selection", "tpr", "fpr", "ppv"}
+        for crit, v in got.items():
+            r = mine.loc[crit]
+            assert r["value"] == pytest.approx(v, abs=1e-12) and r["reference_value"] == pytest.approx(ref[crit])
+            higher = v > ref[crit]
+            assert bool(r["higher"]) == higher
+            # The definitions, from the person's side: a group is worse off when its members are given
+            # the favourable prediction less often than the reference's members with the same true
+            # outcome (selection: every row; TPR: actual members of the set; FPR: actual others), or
+            # when its favourable predictions are held to a higher bar (higher PPV).
+            worse = higher if crit == "ppv" else not higher
+            assert bool(r["disadvantaged"]) == worse, (group, crit)
+            assert r["reading"] == ("at a disadvantage" if worse else "in the group's favour")
+            more = "more" if higher else "less"
+            assert r["meaning"] == {
+                "selection": f"predicted '{fav_words}' (favourable) {more} often",
+                "tpr": f"among actual '{fav_words}', given the favourable '{fav_words}' {more} often",
+                "fpr": f"among actual '{other_words}', given the favourable '{fav_words}' {more} often",
+                "ppv": (f"its '{fav_words}' (favourable) predictions are {more} often borne out"
+                        f" ({'a higher' if higher else 'a lower'} bar)"),
+            }[crit]
+    # the planted directions: 'south' is given the favourable outcome less often, 'east' more often
+    assert found.loc[found["group"] == "south", "disadvantaged"].all()
+    assert not found.loc[(found["group"] == "east"), "disadvantaged"].any()
+    assert "four_fifths" in set(found.loc[found["group"] == "south", "criterion"])  # 29 CFR 1607.4(D)
+    # the report states the same rule for the set and marks each flag the same way
+    html_text = build_html(res, created="2026-01-01T00:00:00+00:00")
+    fair = html_text[html_text.index("<section id='fairness'>"):html_text.index("<section id='limits'>")]
+    words = re.sub(r"\s+", " ", html_mod.unescape(re.sub(r"<[^>]+>", " ", fair)))
+    assert (f"when its members get the favourable prediction ({fav_words}) less often than the reference group's "
+            "members with the same true outcome (lower selection rate; lower TPR; lower FPR), or when its "
+            f"{fav_words} predictions are held to a higher bar (higher PPV)") in words
+    for _, r in found.iterrows():
+        assert finding_text(r) in words
+    summary = json.loads(build_files(res)["summary.json"])
+    assert summary["fairness"]["favorable_is_positive"] is None
+    jsonschema = pytest.importorskip("jsonschema")
+    jsonschema.validate(summary, json.load(open(os.path.join(ROOT, "audit", "faces", "summary.schema.json"))))

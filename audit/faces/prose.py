@@ -203,7 +203,7 @@ FAIRNESS_CRITERIA = (
 )
 
 
-def disadvantage_when_higher(criterion: str, favorable_is_positive: bool) -> bool:
+def disadvantage_when_higher(criterion: str, favorable_is_positive: bool | None) -> bool:
     """Whether a group is at a disadvantage when its rate is *higher* than the reference's.
 
     The rule, stated from the person's side: a group is at a disadvantage when its members are
@@ -213,18 +213,23 @@ def disadvantage_when_higher(criterion: str, favorable_is_positive: bool) -> boo
     often borne out (PPV). So with the positive class favourable: lower selection rate, lower TPR,
     lower FPR, higher PPV; with the negative class favourable (e.g. a delinquency model, where
     "not delinquent" is favourable): lower selection rate, higher TPR, higher FPR, lower PPV.
+    With three or more classes (``favorable_is_positive`` None) the rates are one versus the rest
+    for the favourable set, which is their "positive" side: the first case.
 
     >>> [disadvantage_when_higher(c, True) for c in ("selection", "tpr", "fpr", "ppv")]
     [False, False, False, True]
     >>> [disadvantage_when_higher(c, False) for c in ("selection", "tpr", "fpr", "ppv")]
     [False, True, True, False]
+    >>> [disadvantage_when_higher(c, None) for c in ("selection", "tpr", "fpr", "ppv")]
+    [False, False, False, True]
     """
+    fav_is_pos = favorable_is_positive is None or bool(favorable_is_positive)
     if criterion == "selection":
         return False
     if criterion in ("tpr", "fpr"):
-        return not favorable_is_positive
+        return not fav_is_pos
     if criterion == "ppv":
-        return favorable_is_positive
+        return fav_is_pos
     raise KeyError(criterion)
 
 
@@ -261,8 +266,8 @@ def fairness_findings(result) -> "pd.DataFrame":
     fr = result.fairness
     if fr is None:
         return pd.DataFrame(columns=cols)
-    if is_multiclass(result):
-        # One versus rest for the favourable set: "positive" means a class of the set.
+    if fr.favorable_is_positive is None:
+        # Three or more classes: one versus rest for the favourable set; "positive" means a class of the set.
         pos, neg = str(fr.favorable), f"other than {fr.favorable}"
         fav_is_pos = True
     else:

@@ -641,8 +641,9 @@ def _fairness_section(result, found, lvl: int) -> tuple[str, int]:
 
     fr = result.fairness
     fav = str(fr.favorable)
-    if is_multiclass(result):
-        # One versus rest for the favourable set: it plays the positive class in every criterion.
+    if fr.favorable_is_positive is None:
+        # Three or more classes, one versus rest for the favourable set: it plays the positive class
+        # in every criterion.
         pos, neg, fav_pos = fav, f"a class other than {fav}", True
         role = " (one or more classes; every criterion below is computed one versus the rest for this set)"
     else:

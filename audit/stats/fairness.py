@@ -36,11 +36,18 @@ from .measure import ratio
 
 @dataclass(frozen=True)
 class FairnessResult:
-    """Per-group fairness table (``groups``) and what it was computed under."""
+    """Per-group fairness table (``groups``) and what it was computed under.
+
+    ``favorable_is_positive``: with two classes, whether the favourable predicted class is the
+    positive class (TPR, FPR and PPV are of the positive class either way, so which way a
+    difference harms a group depends on it). With three or more classes it is None: there is no
+    positive class, and every criterion is one versus the rest for the favourable set
+    (``favorable``, e.g. "approve or refer"), which plays the positive class's part.
+    """
 
     groups: pd.DataFrame
     favorable: str
-    favorable_is_positive: bool
+    favorable_is_positive: bool | None
     references: dict[str, str]
     missing: dict[str, int]
     min_group_share: float
@@ -107,7 +114,7 @@ def assess(groups, fitted, cfg, *, scoring=None) -> FairnessResult:
     favs = () if cfg.favorable is None else (cfg.favorable if isinstance(cfg.favorable, tuple) else (cfg.favorable,))
     fav_set = [classes.index(_match_class(f, classes)) for f in favs] or [1]
     fav_idx = fav_set[0]
-    fav_pos = fav_set == [1] and k_cls == 2
+    fav_pos = fav_set == [1] if k_cls == 2 else None  # no positive class among three or more
     favorable = " or ".join(classes[i] for i in fav_set)
     # Two classes: the criteria use the positive class. Three or more: one-vs-rest for the
     # favourable set F (a row is "positive" when its class is in F).
