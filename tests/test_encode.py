@@ -125,3 +125,11 @@ def test_text_columns_profiled_in_parts_state_what_the_parts_know():
     many = pd.Series([f"c{i}" for i in range(100_001)])
     assert fit_encoding([profile_column(many, "id")]).skipped["id"] == \
         "looks like an identifier (100001 distinct values in 100001 rows)"
+    # A profile built elsewhere that dropped its values uncounted had more than TEXT_CAP (the only
+    # reason profile_column drops them): the reason says so instead of a number it does not have.
+    from audit.core.encoding import ColumnProfile
+
+    bare = ColumnProfile("id", "text", 1_000_000, 0, counts=None)
+    assert fit_encoding([bare]).skipped["id"] == ("at least 100001 distinct values in 1000000 rows (not counted "
+                                                  "exactly), more than max_levels=100: an identifier or too varied "
+                                                  "to slice")

@@ -477,8 +477,9 @@ def _text_skip(p: ColumnProfile, n_nonmiss: int, max_levels: int, *, forced: boo
             return f"{count} distinct values, more than the {TEXT_CAP} a profile lists; bin or group it first"
         return None
     # The bounds straddle the identifier rule; the column is skipped as too varied either way.
+    how = "not counted exactly" if high is None else "counted chunk by chunk"
     most = "" if high is None else f" and at most {high}"
-    return (f"at least {low}{most} distinct values in {n_nonmiss} rows (counted chunk by chunk), more than "
+    return (f"at least {low}{most} distinct values in {n_nonmiss} rows ({how}), more than "
             f"max_levels={max_levels}: an identifier or too varied to slice")
 
 
