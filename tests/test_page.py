@@ -182,6 +182,28 @@ def test_second_upload_replaces_every_choice():
                                   .reset_index(drop=True), check_dtype=False)
 
 
+def test_statistical_settings_carry_over_to_a_new_file_and_drive_its_audit():
+    # Support, test level, correction and interval name no column: they keep their value from file to
+    # file, and the new file's numbers are computed with the values shown (checked against the engine).
+    at = upload(app().run(), "churn.csv", churn_table())
+    w(at, "number_input", "min_support").set_value(50)
+    w(at, "number_input", "alpha").set_value(0.01)
+    w(at, "selectbox", "correction").set_value("holm")
+    w(at, "selectbox", "level").set_value(0.9)
+    submit(at)
+    other = random_table(n=1500, seed=3)
+    upload(at, "other.csv", other)
+    shown = {k: w(at, kind, k).value for kind, k in [("number_input", "min_support"), ("number_input", "alpha"),
+                                                     ("selectbox", "correction"), ("selectbox", "level")]}
+    assert shown == {"min_support": 50, "alpha": 0.01, "correction": "holm", "level": 0.9}
+    exp = audit.run(other, label="y", score="p", attributes=["region", "plan", "age"], min_support=50, alpha=0.01,
+                    correction="holm", level=0.9)
+    pd.testing.assert_frame_equal(ranked_table(at).reset_index(drop=True),
+                                  exp.ranked()[RANKED].rename(columns={"metric_value": "error_rate"})
+                                  .reset_index(drop=True), check_dtype=False)
+    assert metric_box(at, "Flagged") == f"{exp.status_counts().get('flagged', 0):,}"
+
+
 def test_label_change_refreshes_the_positive_class_and_attributes():
     df = churn_table()
     df["retained"] = np.where(df["churned"] == "yes", "gone", "kept")
@@ -754,3 +776,19 @@ def test_attribute_screen_is_the_engines_decision():
     assert t.reader == "pyarrow" and t.columns["customer_id"].distinct is None
     keep, skip = intake.screen(t, cands, label="churned")
     assert keep == [a.name for a in res.attributes] and skip == res.skipped
+
+
+def test_screen_words_an_identifier_past_the_text_cap_as_the_engine_does():
+    # Past TEXT_CAP distinct values the page counts exactly instead of keeping every value; the skip
+    # reason is still the engine's, word for word.
+    from audit.core.encoding import TEXT_CAP
+    from ui import intake
+
+    n = TEXT_CAP + 500
+    df = pd.DataFrame({"ref": [f"R{i:07d}" for i in range(n)], "g": np.where(np.arange(n) % 3, "a", "b"),
+                       "y": np.arange(n) % 2, "p": (np.arange(n) % 7) / 7})
+    t = intake._read(df.to_csv(index=False).encode(), "t.csv", "x")
+    keep, skip = intake.screen(t, ["ref", "g"], label="y")
+    res = audit.run(df, label="y", score="p", attributes=["ref", "g"])
+    assert keep == [a.name for a in res.attributes] == ["g"]
+    assert skip == res.skipped and f"{n} distinct values in {n} rows" in skip["ref"]

@@ -6,7 +6,10 @@ from ``audit.faces.charts``; downloads are built by ``audit.faces.export`` and
 
 What the page shows is what it computed: every widget whose choices depend on something
 (the file, the label, the result) is keyed on what it depends on, so a new file, label,
-metric or filter gives a fresh widget showing the value the numbers below it used.
+metric or filter gives a fresh widget showing the value the numbers below it used. The
+statistical settings (support, threshold, bins, test level, correction, interval) name no
+column: they keep one key, and their value, from file to file, so a new upload redraws none of
+them (each widget a new tab draws anew costs every session's browser time).
 
     streamlit run ui/app.py
 """
@@ -302,7 +305,7 @@ else:
     used = (label, pred, *score_map.values())
 
 candidates = [c for c in cols if c not in used]
-bins_now = int(st.session_state.get(f"bins-{sig}", 5))
+bins_now = int(st.session_state.get("bins", 5))
 numeric_cols = [c for c in candidates if intake.is_number_column(table, c)]
 # The screen follows the last submitted codes/bins choices, as the audit will.
 cat_now = [c for c in (recall("categorical") or []) if c in numeric_cols]
@@ -318,14 +321,14 @@ with st.form("settings"):
     if not multi:
         positive = choose(c4, WIDGETS["positive"], ["(infer)"] + values, "(infer)", "positive", *roles,
                           help="Inferred for 0/1, false/true, no/yes labels; pick it otherwise.")
-        threshold = c5.number_input(WIDGETS["threshold"], 0.0, 1.0, 0.5, 0.01, key=f"threshold-{sig}",
+        threshold = c5.number_input(WIDGETS["threshold"], 0.0, 1.0, 0.5, 0.01, key="threshold",
                                     disabled=score is None or pred is not None,
                                     help="Used only when the prediction comes from the probability column.")
     else:
         positive, threshold = "(infer)", 0.5
         c4.caption("Three or more classes: no positive class and no threshold; each class is measured one-vs-rest "
                    "and averaged.")
-    bins = c6.number_input(WIDGETS["bins"], 1, 20, 5, 1, key=f"bins-{sig}")
+    bins = c6.number_input(WIDGETS["bins"], 1, 20, 5, 1, key="bins")
     attrs = choose_many(st, WIDGETS["attributes"], candidates, sliceable, "attributes", *roles)
     if not_sliceable:
         st.caption("Not preselected: " + "; ".join(f"**{md(k)}**: {md(page_words(v))}" for k, v in not_sliceable.items())
@@ -346,20 +349,20 @@ with st.form("settings"):
         metric_names += [f"{b}:{k}" for k in classes for b in ("recall", "precision", "f1")]
     metric = choose(c7, WIDGETS["metric"], metric_names, "error_rate", "metric", sig, multi, score is None,
                     bool(score_map), label, format_func=lambda k: f"{k} — {metric_for(k).title}")
-    min_support = c8.number_input(WIDGETS["min_support"], 1, 100000, 30, 5, key=f"min_support-{sig}")
-    min_metric = c9.number_input(WIDGETS["min_metric_support"], 1, 100000, 10, 5, key=f"min_metric-{sig}",
+    min_support = c8.number_input(WIDGETS["min_support"], 1, 100000, 30, 5, key="min_support")
+    min_metric = c9.number_input(WIDGETS["min_metric_support"], 1, 100000, 10, 5, key="min_metric",
                                  help="For recall, the actual positives; for precision, the predicted positives.")
-    max_order = c10.selectbox(WIDGETS["max_order"], [2, 1, 3], index=0, key=f"max_order-{sig}",
+    max_order = c10.selectbox(WIDGETS["max_order"], [2, 1, 3], index=0, key="max_order",
                               format_func=lambda o: {1: "single attributes", 2: "single attributes and pairs",
                                                      3: "up to three attributes"}[o])
     c11, c12, c13, c14 = st.columns(4)
-    alpha = c11.number_input(WIDGETS["alpha"], 0.001, 0.5, 0.05, 0.01, format="%.3f", key=f"alpha-{sig}")
-    correction = c12.selectbox(WIDGETS["correction"], list(CORRECTIONS), index=0, key=f"correction-{sig}",
+    alpha = c11.number_input(WIDGETS["alpha"], 0.001, 0.5, 0.05, 0.01, format="%.3f", key="alpha")
+    correction = c12.selectbox(WIDGETS["correction"], list(CORRECTIONS), index=0, key="correction",
                                format_func=lambda k: f"{CORRECTIONS[k].title}")
-    interval = c13.selectbox(WIDGETS["interval"], list(INTERVALS), index=0, key=f"interval-{sig}",
+    interval = c13.selectbox(WIDGETS["interval"], list(INTERVALS), index=0, key="interval",
                              format_func=lambda k: INTERVALS[k].title)
     # A select box, not a slider: the slider's own code costs every new tab about 0.1 s to load and draw.
-    level = c14.selectbox(WIDGETS["level"], [0.8, 0.9, 0.95, 0.99], index=2, key=f"level-{sig}",
+    level = c14.selectbox(WIDGETS["level"], [0.8, 0.9, 0.95, 0.99], index=2, key="level",
                           format_func=lambda v: f"{v:.0%}")
     st.markdown("**Group fairness** (optional). " + SENSITIVE)
     f1, f2, f3 = st.columns(3)
@@ -372,7 +375,7 @@ with st.form("settings"):
     else:
         favorable = tuple(choose_many(f2, WIDGETS["favorable"], classes, [], "favorable_set", *roles,
                                       help=fav_help)) or None
-    min_share = f3.number_input(WIDGETS["min_group_share"], 0.0, 0.5, 0.02, 0.01, key=f"min_share-{sig}")
+    min_share = f3.number_input(WIDGETS["min_group_share"], 0.0, 0.5, 0.02, 0.01, key="min_share")
     reference_text = st.text_input(WIDGETS["reference"] + " (optional; default: the highest selection rate), e.g. "
                                    "sex=female; age_band=35-44", key=f"reference-{sig}")
     st.form_submit_button("Run the audit")

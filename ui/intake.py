@@ -385,7 +385,9 @@ def _profile_for_screen(table: Table, c: str, profile_column):
     if info is not None and info.distinct is None and not info.numeric and pd.api.types.is_string_dtype(s) \
             and not isinstance(s.dtype, pd.CategoricalDtype):
         nu = int(s.nunique(dropna=True))
-        return ColumnProfile(c, "text", len(s), info.n_missing, counts=None if nu > TEXT_CAP else _Distinct(nu))
+        if nu > TEXT_CAP:  # too many to keep: the exact count, worded as the engine words it
+            return ColumnProfile(c, "text", len(s), info.n_missing, counts=None, distinct_seen=nu, distinct_sum=nu)
+        return ColumnProfile(c, "text", len(s), info.n_missing, counts=_Distinct(nu))
     return profile_column(s, c)
 
 
