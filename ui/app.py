@@ -65,6 +65,11 @@ Then type the output folder (`run1`) below to browse its findings, ranked slices
 read from its `slices.csv` and `summary.json` without recomputing anything."""
 
 st.set_page_config(page_title="Fissure slice audit", layout="wide")
+# Still placeholders: a new tab shows dozens of loading placeholders, each pulsing for as long as it
+# waits, and every pulse is a frame the browser draws; on a busy server that is the whole wait. The
+# expanders' border fade goes too. (Streamlit's fade of stale content is kept: its delay avoids flicker.)
+st.html("<style>[data-testid='stSkeleton']{animation:none!important}"
+        "[data-testid='stExpander'] details{transition:none!important}</style>")
 try:
     MAX_UPLOAD_MB = int(st.get_option("server.maxUploadSize"))
 except Exception:  # outside a server (tests) the option may be unset
