@@ -254,6 +254,7 @@ def test_charts_wait_for_their_section(page, app_url, tmp_path):
     assert not [u for u in loaded if "PlotlyChart" in u]          # the chart library was not even fetched
     # Loading placeholders stand still (each pulse would be frames drawn for as long as the tab waits).
     still = page.evaluate("""() => { const d = document.createElement('div'); d.setAttribute('data-testid', 'stSkeleton');
+        d.style.animation = 'pulse 1s infinite';
         document.body.appendChild(d); const a = getComputedStyle(d).animationName; d.remove(); return a; }""")
     assert still == "none"
     section = page.get_by_text("Chart: each tested slice against the band of chance")
