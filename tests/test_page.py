@@ -354,6 +354,10 @@ def test_fairness_view_table_is_formatted(demo_df):
     assert not t["exclusion_reason"].astype(str).isin(["None", "nan"]).any()
     assert '"%.2e"' in fair.proto.columns and '"%.4f"' in fair.proto.columns
     exp = audit.run(demo_df, label="delinquent", score="p_delinquent", protected=["sex", "age_band"], favorable="0")
+    # Predicted 0 (not delinquent) is favourable, and 1 is the positive class: the page says which it is.
+    assert exp.fairness.favorable_is_positive is False
+    assert any("Favourable outcome: predicted" in m.value and "(the negative prediction)" in m.value
+               for m in at.markdown)
     g = exp.fairness.groups
     np.testing.assert_allclose(t["selection_rate"].to_numpy(), g.loc[g["attribute"] == "sex", "selection_rate"])
 
@@ -464,6 +468,10 @@ def test_fairness_chart_section_draws_the_groups_in_the_table(demo_df):
     np.testing.assert_allclose(_arr(bars["y"]), t["selection_rate"].to_numpy())
     assert [x.split(" (")[0] for x in bars["x"]] == t["group"].tolist()
     exp = audit.run(demo_df, label="delinquent", score="p_delinquent", protected=["sex", "age_band"], favorable="0")
+    # Predicted 0 (not delinquent) is favourable, and 1 is the positive class: the page says which it is.
+    assert exp.fairness.favorable_is_positive is False
+    assert any("Favourable outcome: predicted" in m.value and "(the negative prediction)" in m.value
+               for m in at.markdown)
     g = exp.fairness.groups
     np.testing.assert_allclose(_arr(drawn["fair_eo"]["data"][0]["y"]), g.loc[g["attribute"] == "age_band", "tpr"])
 
@@ -639,6 +647,9 @@ def test_three_classes_end_to_end():
     assert attrs == ["channel", "region", "product", "age_band"]
     exp = audit.run(df, label="desk", score=score, attributes=attrs, metric="recall:refer", protected=["age_band"],
                     favorable=["approve"])
+    assert exp.fairness.favorable_is_positive is None  # three classes: the favourable set, one versus the rest
+    assert any("Favourable outcome: predicted" in m.value and "one versus the rest for this set" in m.value
+               for m in at.markdown)
     pd.testing.assert_frame_equal(ranked_table(at).reset_index(drop=True),
                                   exp.ranked()[RANKED].rename(columns={"metric_value": "recall:refer"})
                                   .reset_index(drop=True), check_dtype=False)

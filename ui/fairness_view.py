@@ -79,9 +79,9 @@ def show(fr: FairnessResult, st, *, key: str = "", result=None) -> None:
     fairness flags with their direction first."""
     if result is not None:
         show_flags(fairness_findings(result), st)
-    st.markdown(f"Favourable outcome: predicted {favourable_words(fr.favorable)}"
-                + (" (the positive prediction)" if fr.favorable_is_positive and not isinstance(fr.favorable, tuple)
-                   else "")
+    role = {True: " (the positive prediction)", False: " (the negative prediction)",
+            None: " (one or more classes: every criterion is computed one versus the rest for this set)"}
+    st.markdown(f"Favourable outcome: predicted {favourable_words(fr.favorable)}{role[fr.favorable_is_positive]}"
                 + f". Groups under {fr.min_group_share:.0%} of rows are shown but left out of ratios. Differences "
                   "(− ref) are against the reference group of each attribute.")
     for note in fr.notes:
