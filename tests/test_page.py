@@ -202,6 +202,12 @@ def test_statistical_settings_carry_over_to_a_new_file_and_drive_its_audit():
                                   exp.ranked()[RANKED].rename(columns={"metric_value": "error_rate"})
                                   .reset_index(drop=True), check_dtype=False)
     assert metric_box(at, "Flagged") == f"{exp.status_counts().get('flagged', 0):,}"
+    # The settings sit in a closed box; the line under the overview states the ones the numbers used.
+    assert {"Support, slices, test level, correction, intervals and bins",
+            "Group fairness (optional): protected attributes and the favourable outcome"} <= {e.label for e in at.expander}
+    used = next(c.value for c in at.caption if c.value.startswith("Audited with:"))
+    assert "at least 50 rows per slice and 10 in the metric's denominator" in used
+    assert "adjusted p ≤ 0.01 (Holm" in used and "intervals at 90%" in used and "5 quantile bins" in used
 
 
 def test_label_change_refreshes_the_positive_class_and_attributes():

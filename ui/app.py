@@ -51,6 +51,8 @@ SENSITIVE = ("Protected attributes are sensitive personal data: handle the file 
 RANKED_COLUMNS = ["rank", "slice", "order", "n", "metric_value", "metric_low", "metric_high", "rest_value", "diff",
                   "diff_low", "diff_high", "p_value", "q_value", "flagged"]
 NONE = "(none)"
+STATS_BOX = "Support, slices, test level, correction, intervals and bins"
+FAIR_BOX = "Group fairness (optional): protected attributes and the favourable outcome"
 CHOOSE = "(choose)"
 PROBS, PRED_COLUMN = "one probability column per class", "a predicted-label column"
 MULTI_METRICS = ["error_rate", "accuracy", "macro_f1", "log_loss", "brier"]
@@ -333,34 +335,29 @@ with st.form("settings"):
         positive, threshold = "(infer)", 0.5
         c4.caption("Three or more classes: no positive class and no threshold; each class is measured one-vs-rest "
                    "and averaged.")
-    bins = c6.number_input(WIDGETS["bins"], 1, 20, 5, 1, key="bins")
-    attrs = choose_many(st, WIDGETS["attributes"], candidates, sliceable, "attributes", *roles)
-    if not_sliceable:
-        st.caption("Not preselected: " + "; ".join(f"**{md(k)}**: {md(page_words(v))}" for k, v in not_sliceable.items())
-                   + ". Choosing one anyway: the audit skips it and says why.")
-    if numeric_cols:
-        k1, k2 = st.columns(2)
-        categorical = choose_many(k1, WIDGETS["categorical"], numeric_cols, cat_now, "categorical", *roles,
-                                  help="Branch, product or region codes: each value is a slice, never binned.")
-        numeric = choose_many(k2, WIDGETS["numeric"], numeric_cols, num_now, "numeric", *roles,
-                              help="Cut into quantile bins even when the column has only a few distinct values.")
-    else:
-        categorical, numeric = [], []
-    c7, c8, c9, c10 = st.columns(4)
     if not multi:
         metric_names = [k for k, m in METRICS.items() if score is not None or not m.needs_score]
     else:
         metric_names = [k for k in MULTI_METRICS if score_map or k not in ("log_loss", "brier")]
         metric_names += [f"{b}:{k}" for k in classes for b in ("recall", "precision", "f1")]
-    metric = choose(c7, WIDGETS["metric"], metric_names, "error_rate", "metric", sig, multi, score is None,
+    metric = choose(c6, WIDGETS["metric"], metric_names, "error_rate", "metric", sig, multi, score is None,
                     bool(score_map), label, format_func=lambda k: f"{k} — {metric_for(k).title}")
+    attrs = choose_many(st, WIDGETS["attributes"], candidates, sliceable, "attributes", *roles)
+    if not_sliceable:
+        st.caption("Not preselected: " + "; ".join(f"**{md(k)}**: {md(page_words(v))}" for k, v in not_sliceable.items())
+                   + ". Choosing one anyway: the audit skips it and says why.")
+    # Two boxes closed until opened: the browser draws their widgets only then, while the script
+    # still reads every one of them, so their values hold whether the box is open or not.
+    more = st.expander(STATS_BOX)
+    c7, c8, c9, c10 = more.columns(4)
+    bins = c7.number_input(WIDGETS["bins"], 1, 20, 5, 1, key="bins")
     min_support = c8.number_input(WIDGETS["min_support"], 1, 100000, 30, 5, key="min_support")
     min_metric = c9.number_input(WIDGETS["min_metric_support"], 1, 100000, 10, 5, key="min_metric",
                                  help="For recall, the actual positives; for precision, the predicted positives.")
     max_order = c10.selectbox(WIDGETS["max_order"], [2, 1, 3], index=0, key="max_order",
                               format_func=lambda o: {1: "single attributes", 2: "single attributes and pairs",
                                                      3: "up to three attributes"}[o])
-    c11, c12, c13, c14 = st.columns(4)
+    c11, c12, c13, c14 = more.columns(4)
     alpha = c11.number_input(WIDGETS["alpha"], 0.001, 0.5, 0.05, 0.01, format="%.3f", key="alpha")
     correction = c12.selectbox(WIDGETS["correction"], list(CORRECTIONS), index=0, key="correction",
                                format_func=lambda k: f"{CORRECTIONS[k].title}")
@@ -369,8 +366,17 @@ with st.form("settings"):
     # A select box, not a slider: the slider's own code costs every new tab about 0.1 s to load and draw.
     level = c14.selectbox(WIDGETS["level"], [0.8, 0.9, 0.95, 0.99], index=2, key="level",
                           format_func=lambda v: f"{v:.0%}")
-    st.markdown("**Group fairness** (optional). " + SENSITIVE)
-    f1, f2, f3 = st.columns(3)
+    if numeric_cols:
+        k1, k2 = more.columns(2)
+        categorical = choose_many(k1, WIDGETS["categorical"], numeric_cols, cat_now, "categorical", *roles,
+                                  help="Branch, product or region codes: each value is a slice, never binned.")
+        numeric = choose_many(k2, WIDGETS["numeric"], numeric_cols, num_now, "numeric", *roles,
+                              help="Cut into quantile bins even when the column has only a few distinct values.")
+    else:
+        categorical, numeric = [], []
+    fair = st.expander(FAIR_BOX, expanded=bool(recall("protected")))
+    fair.markdown(SENSITIVE)
+    f1, f2, f3 = fair.columns(3)
     protected = choose_many(f1, WIDGETS["protected"], candidates, [], "protected", *roles)
     fav_help = ("Which prediction is good for the person: for a delinquency model, being predicted not delinquent; "
                 "for a loan-routing model, being approved. Required with protected attributes.")
@@ -381,8 +387,8 @@ with st.form("settings"):
         favorable = tuple(choose_many(f2, WIDGETS["favorable"], classes, [], "favorable_set", *roles,
                                       help=fav_help)) or None
     min_share = f3.number_input(WIDGETS["min_group_share"], 0.0, 0.5, 0.02, 0.01, key="min_share")
-    reference_text = st.text_input(WIDGETS["reference"] + " (optional; default: the highest selection rate), e.g. "
-                                   "sex=female; age_band=35-44", key=f"reference-{sig}")
+    reference_text = fair.text_input(WIDGETS["reference"] + " (optional; default: the highest selection rate), e.g. "
+                                     "sex=female; age_band=35-44", key=f"reference-{sig}")
     st.form_submit_button("Run the audit")
 
 if multi and how == PROBS and len(score_map) < len(classes):
@@ -481,6 +487,12 @@ k3.metric("Slices tested", f"{stc.get('tested', 0):,}", help=f"family size m = {
 k4.metric("Below support", f"{stc.get('below_support', 0):,}")
 k5.metric("Flagged", f"{stc.get('flagged', 0):,}", help="Slices that do worse than the rest of the rows, with "
           "adjusted p at or below the threshold. Slices that do better are never flagged.")
+cfg = result.config
+order_words = {1: "single attributes", 2: "single attributes and pairs", 3: "up to three attributes"}[cfg.max_order]
+st.caption(f"Audited with: {order_words}; at least {cfg.min_support:,} rows per slice and {cfg.min_metric_support:,} in "
+           f"the metric's denominator; flagged at adjusted p ≤ {cfg.alpha:g} ({md(CORRECTIONS[cfg.correction].title)}); "
+           f"{md(INTERVALS[cfg.interval].title)} intervals at {lvl}%; {cfg.bins} quantile bins per numeric attribute "
+           f"(*{STATS_BOX}* above).")
 if triples_words(result):
     st.caption(f"Triples of values from three different attributes: {md(triples_words(result))}.")
 skipped = {**result.skipped}
