@@ -4,7 +4,7 @@ BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
 PORT ?= 8501
 
-.PHONY: setup run test bench bench-startup demo clean
+.PHONY: setup run test bench bench-startup bench-page demo clean
 
 $(STAMP): pyproject.toml
 	@command -v $(PY) >/dev/null 2>&1 || { echo "need $(PY) on PATH (or run make PY=python3)"; exit 2; }
@@ -34,6 +34,10 @@ bench: setup
 
 bench-startup: setup
 	$(BIN)/python bench/startup_bench.py
+
+# Several people at once: four real Chromium sessions against the page, beside the floor page (about 6 min).
+bench-page: setup
+	$(BIN)/python bench/page_sessions_bench.py
 
 clean:
 	rm -rf $(VENV) .pytest_cache demo/predictions.csv
