@@ -809,3 +809,17 @@ def test_screen_words_an_identifier_past_the_text_cap_as_the_engine_does():
     res = audit.run(df, label="y", score="p", attributes=["ref", "g"])
     assert keep == [a.name for a in res.attributes] == ["g"]
     assert skip == res.skipped and f"{n} distinct values in {n} rows" in skip["ref"]
+
+
+def test_slice_verdict_says_why_a_worse_slice_is_not_flagged(demo_df):
+    at = app().run()
+    res = audit.run(demo_df, label="delinquent", score="p_delinquent")
+    t = res.slices
+    quiet = t[(t["status"] == "tested") & t["worse_than_rest"] & ~t["flagged"].astype(bool)]
+    pick = quiet["slice"].iloc[0]
+    w(at, "selectbox", "slice_pick").set_value(pick).run()
+    line = next(m.value for m in at.markdown if m.value.startswith("Audited metric **"))
+    assert line.endswith(f"— not flagged: adjusted p is above {res.config.alpha:g}.")
+    assert float(quiet["q_value"].iloc[0]) > res.config.alpha   # the engine's own q-value, as the line says
+    # Under the form, the page says when its choices take effect.
+    assert any("take effect when you press **Run the audit**" in c.value for c in at.caption)

@@ -286,7 +286,7 @@ if not multi:
     pred = None if pred == NONE else pred
     looks_pred = [c for c in intake.pred_like_columns(table, label) if c != pred]
     if looks_pred and pred is None:
-        st.caption(f"Column {', '.join(repr(md(c)) for c in looks_pred)} looks like a predicted label: choose it under "
+        st.caption(f"Column {', '.join(chr(39) + md(c) + chr(39) for c in looks_pred)} looks like a predicted label: choose it under "
                    f"**{WIDGETS['pred']}** to audit those decisions rather than probability ≥ threshold.")
     used = (label, score, pred)
 else:
@@ -390,11 +390,13 @@ with st.form("settings"):
     reference_text = fair.text_input(WIDGETS["reference"] + " (optional; default: the highest selection rate), e.g. "
                                      "sex=female; age_band=35-44", key=f"reference-{sig}")
     st.form_submit_button("Run the audit")
+    st.caption("Choices in this box take effect when you press **Run the audit**; until then the results below "
+               "are those of the settings stated under *3 · The whole model first*.")
 
 if multi and how == PROBS and len(score_map) < len(classes):
     missing = [k for k in classes if k not in score_map]
     st.error(f"Choose a column under **{WIDGETS['class_score']} {md(missing[0])}**"
-             + (f" (and for {', '.join(repr(md(k)) for k in missing[1:])})" if missing[1:] else "")
+             + (f" (and for {', '.join(chr(39) + md(k) + chr(39) for k in missing[1:])})" if missing[1:] else "")
              + f", or choose *{PRED_COLUMN}* under **{WIDGETS['how']}**: with {len(classes)} classes the audit needs "
                "one probability column per class.")
     st.stop()
@@ -489,8 +491,8 @@ k5.metric("Flagged", f"{stc.get('flagged', 0):,}", help="Slices that do worse th
           "adjusted p at or below the threshold. Slices that do better are never flagged.")
 cfg = result.config
 order_words = {1: "single attributes", 2: "single attributes and pairs", 3: "up to three attributes"}[cfg.max_order]
-st.caption(f"Audited with: {order_words}; at least {cfg.min_support:,} rows per slice and {cfg.min_metric_support:,} in "
-           f"the metric's denominator; flagged at adjusted p ≤ {cfg.alpha:g} ({md(CORRECTIONS[cfg.correction].title)}); "
+st.caption(f"Audited with: {md(m.title)} ({md(m.name)}); {order_words}; at least {cfg.min_support:,} rows per slice "
+           f"and {cfg.min_metric_support:,} in the metric's denominator; flagged at adjusted p ≤ {cfg.alpha:g} ({md(CORRECTIONS[cfg.correction].title)}); "
            f"{md(INTERVALS[cfg.interval].title)} intervals at {lvl}%; {cfg.bins} quantile bins per numeric attribute "
            f"(*{STATS_BOX}* above).")
 if triples_words(result):
@@ -612,7 +614,8 @@ else:
                     f"difference {fmt(s['diff'])} [{fmt(s['diff_low'])}, {fmt(s['diff_high'])}], "
                     f"{md(s['test'])} test, p = {s['p_value']:.3g}, adjusted p = {s['q_value']:.3g}"
                     + (" — **flagged**." if s["flagged"] else
-                       (" — not flagged: it does better than the rest." if not s["worse_than_rest"] else "."))
+                       (" — not flagged: it does better than the rest." if not s["worse_than_rest"] else
+                        f" — not flagged: adjusted p is above {result.config.alpha:g}."))
                     + role)
 
 # ----------------------------------------------------------------------------- two attributes
