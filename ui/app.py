@@ -391,7 +391,7 @@ with st.form("settings"):
                                      "sex=female; age_band=35-44", key=f"reference-{sig}")
     st.form_submit_button("Run the audit")
     st.caption("Choices in this box take effect when you press **Run the audit**; until then the results below "
-               "are those of the settings stated under *3 · The whole model first*.")
+               "are those of the settings stated in section 3, under the overview.")
 
 if multi and how == PROBS and len(score_map) < len(classes):
     missing = [k for k in classes if k not in score_map]
@@ -484,7 +484,8 @@ o = result.overall
 stc = result.status_counts()
 k1, k2, k3, k4, k5 = st.columns(5)
 k1.metric("Rows", f"{result.n_rows:,}")
-k2.metric(f"Overall {m.name}", fmt(o.get(m.name, result.slice(ALL)["metric_value"])))
+k2.metric(f"Overall {m.title.split(' (')[0]}", fmt(o.get(m.name, result.slice(ALL)["metric_value"])),
+          help=f"{m.title}; its name in the files and on the command line: {m.name}")
 k3.metric("Slices tested", f"{stc.get('tested', 0):,}", help=f"family size m = {result.family_size}")
 k4.metric("Below support", f"{stc.get('below_support', 0):,}")
 k5.metric("Flagged", f"{stc.get('flagged', 0):,}", help="Slices that do worse than the rest of the rows, with "
@@ -514,7 +515,8 @@ else:
         if o.get(k) is None:
             continue
         # interval ends as text: the browser's grid writes a missing number as "None"; here it is a dash
-        rows.append({"metric": k, "value": o[k], f"{lvl}% low": fmt(o.get(k + "_low")),
+        what = "ROC AUC (area under the ROC curve)" if k == "roc_auc" else metric_for(k).title
+        rows.append({"metric": k, "meaning": what, "value": o[k], f"{lvl}% low": fmt(o.get(k + "_low")),
                      f"{lvl}% high": fmt(o.get(k + "_high"))})
     left.dataframe(pd.DataFrame(rows), hide_index=True, width="stretch", height=35 * (len(rows) + 1) + 3,
                    column_config={"value": NUM4})
