@@ -10,11 +10,14 @@ chunks gets exactly the encoding the same table held in memory gets:
 * numeric columns are cut into half-open bins ``[a, b)``. Quantile bins take their inner
   edges from the quantiles of the first :data:`FIT_SAMPLE` non-missing values, rounded to a
   few significant digits *before* any row is assigned, and the outer bins are open-ended:
-  ``(-inf, e1)``, ``[e1, e2)``, ..., ``[ek, inf)``. Explicit edges ``e0 < ... < ek`` give
+  ``(-inf, e1)``, ``[e1, e2)``, ..., ``[ek, inf)``. A value that quantile edges collapse onto
+  (a mass point, such as the zeros of a column that is mostly 0) gets a bin of its own, cut
+  at the next distinct value above it (``audit.core.bins``). Explicit edges ``e0 < ... < ek`` give
   ``[e0, e1)`` ... ``[e(k-1), ek)`` plus the open tails ``(-inf, e0)`` and ``[ek, inf)``
   when rows fall there. Every printed label is exactly the rule that assigns rows;
 * columns that cannot be sliced meaningfully (identifier-like text or whole numbers, a single
-  value, too many values) are skipped with a stated reason.
+  value, too many values, a numeric column whose values all fall in one bin) are skipped with
+  a stated reason.
 
 Values never seen at fit time (a category, or a missing value where none was seen), met when
 a fitted encoding is applied to another table, are an error naming the attribute and value:
@@ -29,6 +32,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import AuditInputError, shown
+from .bins import bin_labels, plain, quantile_edges, round_edges  # noqa: F401  (public here too)
 from .values import natural_key
 
 MISSING = "(missing)"
@@ -210,45 +214,6 @@ def profile_column(s: pd.Series, name: str, *, as_text: bool = False, cache: dic
 
 
 # ----------------------------------------------------------------------------- fitted encoding
-def plain(x: float) -> str:
-    """An edge as plain digits, exactly (the shortest text that reads back as the same float)."""
-    if x == np.inf:
-        return "inf"
-    if x == -np.inf:
-        return "-inf"
-    if float(x).is_integer() and abs(x) < 1e16:
-        return str(int(x))
-    return np.format_float_positional(float(x), trim="-")
-
-
-def round_edges(inner: np.ndarray, lo: float, hi: float) -> np.ndarray:
-    """Inner quantile edges rounded to the fewest significant digits (two or more) that keep
-    them distinct, increasing and inside (lo, hi]; raw edges if no rounding does."""
-    inner = np.unique(inner[(inner > lo) & (inner <= hi)])
-    if not len(inner):
-        return inner
-    for digits in range(2, 10):
-        r = np.array([float(f"{x:.{digits}g}") for x in inner])
-        r = r[(r > lo) & (r <= hi)]
-        if len(r) == len(inner) and np.all(np.diff(r) > 0):
-            return r
-    return inner
-
-
-def bin_labels(edges: Sequence[float], *, lower_tail: bool, upper_tail: bool) -> list[str]:
-    """Labels for bins cut at ``edges``: ``[a, b)`` each, with optional open tails.
-
-    >>> bin_labels([18, 30, 65], lower_tail=True, upper_tail=True)
-    ['(-inf, 18)', '[18, 30)', '[30, 65)', '[65, inf)']
-    """
-    txt = [plain(e) for e in edges]
-    out = [f"(-inf, {txt[0]})"] if lower_tail else []
-    out += [f"[{txt[i]}, {txt[i + 1]})" for i in range(len(txt) - 1)]
-    if upper_tail:
-        out.append(f"[{txt[-1]}, inf)")
-    return out
-
-
 @dataclass(frozen=True)
 class AttributeCoding:
     """How one attribute column becomes codes: its kind, levels and (for bins) cut points.
@@ -387,13 +352,25 @@ def _binned(p: ColumnProfile, edges: Sequence[float] | None, n_bins: int) -> Att
         cuts, first, shown_edges = e, (0 if lower else -1), e
     else:
         sample = np.concatenate(p.sample) if p.sample else np.empty(0)
-        inner = np.quantile(sample, np.linspace(0.0, 1.0, n_bins + 1)[1:-1]) if len(sample) else np.empty(0)
-        inner = round_edges(inner, p.lo, p.hi)
+        inner = quantile_edges(sample, p.lo, p.hi, n_bins)
         labels = bin_labels(inner.tolist(), lower_tail=True, upper_tail=True) if len(inner) else ["(-inf, inf)"]
         cuts, first, shown_edges = inner, 0, inner
     levels = labels + ([MISSING] if p.n_missing else [])
     return AttributeCoding(p.name, "binned", tuple(levels), edges=tuple(float(x) for x in shown_edges),
                            n_missing=p.n_missing, cuts=tuple(float(x) for x in cuts), first_code=first)
+
+
+def _one_bin(a: AttributeCoding, *, given: bool, n_bins: int) -> str | None:
+    """Why a binned column whose values all fall in one bin is skipped (None: it has two or more).
+    Its slice would be the whole table, or with missing values only restate "not missing"."""
+    bins = [lv for lv in a.levels if lv != MISSING]
+    if len(bins) > 1:
+        return None
+    cause = ("bin_edges put every value in it" if given else "bins=1" if n_bins == 1
+             else "every value is the same")
+    then = ("a slice of it would only restate that the value is not missing" if a.has_missing
+            else "a slice of it would be the whole table")
+    return f"one bin, {bins[0]}, holds every value ({cause}); {then}"
 
 
 def fit_encoding(profiles: Sequence[ColumnProfile], *, n_bins: int = 5, bin_edges: Mapping[str, Sequence[float]]
@@ -426,7 +403,12 @@ def fit_encoding(profiles: Sequence[ColumnProfile], *, n_bins: int = 5, bin_edge
             if p.has_inf:
                 raise AuditInputError(f"attribute column {shown(col)} has an infinite value; bin or clean it first",
                                       setting="attributes")
-            attrs.append(_binned(p, bin_edges.get(col), n_bins))
+            coding = _binned(p, bin_edges.get(col), n_bins)
+            why = _one_bin(coding, given=col in bin_edges, n_bins=n_bins)
+            if why:
+                skipped[col] = why
+                continue
+            attrs.append(coding)
             continue
         if p.kind == "numeric":
             if p.has_inf:
@@ -445,7 +427,12 @@ def fit_encoding(profiles: Sequence[ColumnProfile], *, n_bins: int = 5, bin_edge
                     skipped[col] = (f"looks like a numeric identifier ({distinct} distinct whole numbers in "
                                     f"{p.sample_size} rows); list it with categorical=[...] to slice it anyway")
                     continue
-            attrs.append(_binned(p, None, n_bins))
+            coding = _binned(p, None, n_bins)
+            why = _one_bin(coding, given=False, n_bins=n_bins)
+            if why:
+                skipped[col] = why
+                continue
+            attrs.append(coding)
             continue
         reason = _text_skip(p, n_nonmiss, max_levels, forced=col in categorical)
         if reason:
