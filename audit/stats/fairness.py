@@ -33,6 +33,9 @@ from .intervals import mover_difference, proportion_interval
 from .measure import ratio
 
 
+#: Why the rows with a missing protected value are left out of ratios and tests.
+MISSING_REASON = "unknown or missing protected value"
+
 
 @dataclass(frozen=True)
 class FairnessResult:
@@ -131,7 +134,13 @@ def assess(groups, fitted, cfg, *, scoring=None) -> FairnessResult:
     for q, fam in enumerate(groups.families):
         parts = [attrs[a] for a in (fam[:-1] if has_score else fam)]
         label = " & ".join(a.name for a in parts)
-        levels = [" & ".join(combo) for combo in _product([a.levels for a in parts])]
+        combos = _product([a.levels for a in parts])
+        # A group of one attribute is its value; a group of a pair is named in the slice notation,
+        # in the attribute's order ('Marital=married & Age=(-inf, 27)' under 'Marital & Age').
+        levels = [c[0] for c in combos] if len(parts) == 1 else [pair_group_name(parts, c) for c in combos]
+        aliases = {} if len(parts) == 1 else {
+            alias: name for c, name in zip(combos, levels)
+            for alias in (" & ".join(c), pair_group_name(parts[::-1], c[::-1]))}
         k = len(levels)
         lo_, hi_ = groups.offsets[q], groups.offsets[q + 1]
         cells = groups.counts[lo_:hi_]
@@ -172,12 +181,12 @@ def assess(groups, fitted, cfg, *, scoring=None) -> FairnessResult:
                 # Σ_b (n_b / n) |mean predicted_b − observed rate_b| = Σ_b |Σp_b − Σy_b| / n
                 df["calibration_error"] = (np.abs(sb - yb).sum(axis=1) / nb.sum(axis=1))[keep]
             df["scoring_rate"] = scoring[1][q][keep] / n
-        miss = np.array([MISSING in g.split(" & ") for g in levels])[keep]
+        miss = np.array([MISSING in c for c in combos], dtype=bool)[keep]
         small = df["share"].to_numpy() < cfg.min_group_share
         df["excluded"] = miss | small
-        df["exclusion_reason"] = np.where(miss, "unknown or missing protected value",
+        df["exclusion_reason"] = np.where(miss, MISSING_REASON,
                                           np.where(small, f"share below {cfg.min_group_share:g}", ""))
-        ref = _reference(cfg, label, df)
+        ref = _reference(cfg, label, df, aliases)
         references[label] = ref
         df["is_reference"] = df["group"] == ref
         r = df.index[df["is_reference"]]
@@ -248,9 +257,51 @@ def _product(level_lists):
     return out
 
 
-def _reference(cfg, label: str, df: pd.DataFrame) -> str:
+def pair_group_name(parts, values) -> str:
+    """A pair's group in the slice notation: ``Marital=married & Age=(-inf, 27)``."""
+    return " & ".join(f"{a.name}={x}" for a, x in zip(parts, values))
+
+
+def plain_references(cfg):
+    """The configuration with each pair's reference group written as its two values
+    (``{"Marital & Age": "married & [27, 33)"}``, the form the first pass checks) when it was given
+    in the slice notation fairness.csv uses (``"Marital=married & Age=[27, 33)"``, either order)."""
+    from dataclasses import replace
+
+    prot = list(cfg.protected or ())
+    out = dict(cfg.reference or {})
+    for key, value in out.items():
+        for i, a in enumerate(prot):
+            for b in prot[i + 1:]:
+                if key != f"{a} & {b}":
+                    continue
+                for first, second in ((a, b), (b, a)):
+                    head, cut = f"{first}=", value.find(f" & {second}=", len(first) + 1)
+                    if value.startswith(head) and cut > 0:
+                        x, z = value[len(head):cut], value[cut + len(f" & {second}="):]
+                        out[key] = f"{x} & {z}" if first == a else f"{z} & {x}"
+                        break
+    return cfg if out == cfg.reference else replace(cfg, reference=out)
+
+
+def group_slice_name(attribute: str, group: str) -> str:
+    """A fairness group as a slice is named: 'Marital=married' for a group of one attribute; a
+    pair's group already is ('Age=(-inf, 27) & Marital=married')."""
+    names = attribute.split(" & ")
+    for i in range(1, len(names)):
+        a, b = " & ".join(names[:i]), " & ".join(names[i:])
+        for first, second in ((a, b), (b, a)):
+            if group.startswith(f"{first}=") and f" & {second}=" in group[len(first) + 1:]:
+                return group
+    return f"{attribute}={group}"
+
+
+def _reference(cfg, label: str, df: pd.DataFrame, aliases: dict[str, str] | None = None) -> str:
     chosen = (cfg.reference or {}).get(label)
     if chosen is not None:
+        # A pair's reference may be written as its two values ('married & (-inf, 27)') or in the
+        # slice notation, in either attribute order.
+        chosen = (aliases or {}).get(chosen, chosen)
         if chosen not in set(df["group"]):
             raise AuditInputError(f"reference group {shown(chosen)} does not occur in protected attribute "
                                   f"{shown(label)}", setting="reference")
@@ -271,7 +322,7 @@ def _check_chosen_reference(cfg, label: str, row) -> None:
     if not row["excluded"]:
         return
     group = shown(row["group"])
-    if row["group"] == MISSING or MISSING in str(row["group"]).split(" & "):
+    if row["exclusion_reason"] == MISSING_REASON:
         raise AuditInputError(f"reference group {group} of protected attribute {shown(label)} holds the rows with a "
                               "missing value, which are left out of ratios and tests; choose another group",
                               setting="reference")
