@@ -70,3 +70,25 @@ def test_the_result_encoding_matches_its_attributes(credit_preds):
     assert res.encoding.names == [a.name for a in res.attributes]
     assert res.encoding.skipped == res.skipped
     assert audit.Encoding.from_dict(res.encoding.to_dict()) == res.encoding
+
+
+def test_a_third_label_value_is_one_line_naming_value_and_row(credit_preds, tmp_path, fissure_main):
+    df, _ = credit_preds
+    bad = df.copy()
+    bad.loc[[123, 2000, 3001], "defaulted"] = 2  # three rows a join or an export got wrong
+    path = tmp_path / "bad_3class.csv"
+    bad.to_csv(path, index=False)
+    out = tmp_path / "out"
+    r = fissure_main("audit", path, "--label", "defaulted", "--score", "p_default", "--out", out)
+    assert r.returncode == 2, r
+    lines = r.stderr.strip().splitlines()
+    assert len(lines) == 1 and "Traceback" not in r.stderr, r
+    # The value, its row count and its first data row, by pandas (data rows counted from 1).
+    n2 = int((bad["defaulted"] == 2).sum())
+    first = int(bad.index[bad["defaulted"] == 2][0]) + 1
+    assert (n2, first) == (3, 124)
+    assert lines[0] == ("fissure: label column 'defaulted' has 3 distinct values (0, 1, 2) where a two-class audit "
+                        "(one probability column, 'p_default') expects two: the rarest other value, '2' (3 rows), is "
+                        "first at data row 124; for a multi-class audit give one probability column per class: "
+                        "score={class: column} (--score CLASS=COL,...)")
+    assert not out.exists()

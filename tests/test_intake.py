@@ -103,3 +103,42 @@ def test_read_table_parquet_and_hash(tmp_path):
     back, info = read_table(tmp_path / "t.parquet")
     assert back.equals(df)
     assert info.sha256 == hashlib.sha256((tmp_path / "t.parquet").read_bytes()).hexdigest()
+
+
+def _stray_label(n=600, seed=4):
+    """A two-class table (seeded) where three rows hold a third label value, 2."""
+    rng = np.random.default_rng(seed)
+    y = rng.integers(0, 2, n)
+    y[[123, 301, 477]] = 2
+    y[[40, 41]] = 3  # a fourth value, rarer still
+    return pd.DataFrame({"y": y, "p": rng.random(n).round(4), "g": rng.choice(["a", "b"], n)})
+
+
+def test_a_stray_label_value_with_one_probability_column_names_its_first_row(tmp_path):
+    import audit
+
+    df = _stray_label()
+    y = df["y"]
+    # The rarest value outside the two most frequent, and its first data row (1-based), by pandas.
+    counts = y.value_counts()
+    rarest = counts[~counts.index.isin(counts.index[:2])].idxmin()
+    row = int(np.flatnonzero(y.to_numpy() == rarest)[0]) + 1
+    assert (rarest, counts[rarest], row) == (3, 2, 41)
+    msg = (rf"^label column 'y' has 4 distinct values \(0, 1, 2, 3\) where a two-class audit \(one probability "
+           rf"column, 'p'\) expects two: the rarest other value, '3' \(2 rows\), is first at data row {row}; for a "
+           r"multi-class audit give one probability column per class: score=\{class: column\}")
+    with pytest.raises(AuditInputError, match=msg):
+        read_outcomes(df, label="y", score="p")
+    path = tmp_path / "t.csv"
+    df.to_csv(path, index=False)
+    with pytest.raises(AuditInputError, match=msg):  # read in chunks: the same global row
+        audit.run(str(path), label="y", score="p", chunk_rows=25)
+    # Unlabelled rows left out still count in the row numbering (as every outcome message does).
+    gaps = df.astype({"y": float})
+    gaps.loc[[5, 6], "y"] = np.nan
+    with pytest.raises(AuditInputError, match=msg):
+        audit.run(gaps, label="y", score="p", drop_unlabelled=True)
+    # Only one stray value: it is the one named (2, three rows, first at data row 124).
+    two = df.assign(y=df["y"].replace(3, 0))
+    with pytest.raises(AuditInputError, match=r"the rarest other value, '2' \(3 rows\), is first at data row 124;"):
+        audit.run(two, label="y", score="p", positive="1")

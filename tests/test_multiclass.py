@@ -127,8 +127,10 @@ def test_chunked_multiclass_run_equals_in_memory(tmp_path):
                                                                   r"probability column"),
     ({"score": {**SCORE, "hold": "p_refer2"}}, r"probability column 'p_refer2' is given for class 'hold', which does "
                                                r"not occur"),
-    ({"score": "p_approve"}, r"has 3 distinct values \(approve, decline, refer\); a multi-class audit needs one "
-                             r"probability column per class"),
+    ({"score": "p_approve"}, r"has 3 distinct values \(approve, decline, refer\) where a two-class audit \(one "
+                             r"probability column, 'p_approve'\) expects two: the rarest other value, '\w+' \(\d+ "
+                             r"rows\), is first at data row \d+; for a multi-class audit give one probability column "
+                             r"per class"),
     ({"pred": "bad_pred"}, r"prediction column 'bad_pred' has value 'hold' at data row 3, which is not a class"),
     ({"score": SCORE, "metric": "recall:hold"}, r"metric 'recall:hold' names class 'hold', which is not a class"),
     ({"score": SCORE, "positive": "approve"}, r"a positive class applies to two classes only"),

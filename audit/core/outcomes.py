@@ -77,20 +77,25 @@ def _canonical_codes(s: pd.Series) -> tuple[np.ndarray, np.ndarray]:
     return codes, text
 
 
-def _first_rows(codes: np.ndarray, text: np.ndarray, offset: int, *, rows: bool = True) -> dict[str, int]:
+def _first_rows(codes: np.ndarray, text: np.ndarray, offset: int, *, rows: bool = True,
+                counts: dict[str, int] | None = None) -> dict[str, int]:
     """Each value present in ``codes`` with the first (global) row it occurs in (``rows=False``:
-    the values only, each with row 0 — a label's classes need no row)."""
+    the values only, each with row 0 — a label's classes need no row). ``counts`` (a dict)
+    receives each value's number of rows."""
     size = len(text) - 1
     if codes.dtype == np.uint8:
-        present = np.flatnonzero(np.bincount(codes, minlength=size)[:size])
+        per = np.bincount(codes, minlength=size)[:size]
     else:
-        present = np.flatnonzero(np.bincount(codes[codes >= 0], minlength=size))
+        per = np.bincount(codes[codes >= 0], minlength=size)
+    present = np.flatnonzero(per)
     out: dict[str, int] = {}
     for c in present:
         t = str(text[c])
         row = offset + int(np.argmax(codes == c)) if rows else 0
         if t not in out or row < out[t]:
             out[t] = row
+        if counts is not None:
+            counts[t] = counts.get(t, 0) + int(per[c])
     return out
 
 
@@ -135,18 +140,24 @@ def _first_bad(mask: np.ndarray) -> int:
 class OutcomeProfile:
     """What the outcome columns of some rows hold; ``a + b`` profiles the union of rows."""
 
+    #: Each label value with its first data row (0 for every value unless one probability column
+    #: is given: then a third value is an error that names its row).
     label_first: dict[str, int] = field(default_factory=dict)
     pred_first: dict[str, int] = field(default_factory=dict)
     n_rows: int = 0
     n_unlabelled: int = 0
     sum_off: tuple[int, float] | None = None  # first row whose class probabilities do not sum to 1
+    label_counts: dict[str, int] = field(default_factory=dict)  # rows per label value
 
     def __add__(self, other: "OutcomeProfile") -> "OutcomeProfile":
         offs = [x for x in (self.sum_off, other.sum_off) if x is not None]
+        counts = dict(self.label_counts)
+        for k, v in other.label_counts.items():
+            counts[k] = counts.get(k, 0) + v
         return OutcomeProfile(_merge_first(self.label_first, other.label_first),
                               _merge_first(self.pred_first, other.pred_first),
                               self.n_rows + other.n_rows, self.n_unlabelled + other.n_unlabelled,
-                              min(offs) if offs else None)
+                              min(offs) if offs else None, counts)
 
 
 def _merge_first(a: dict[str, int], b: dict[str, int]) -> dict[str, int]:
@@ -180,7 +191,9 @@ def profile_outcomes(df: pd.DataFrame, cfg, *, offset: int = 0, rows: np.ndarray
     where = (lambda i: offset + int(rows[i])) if rows is not None else (lambda i: offset + i)
     ycodes, ytext = _canonical_codes(df[cfg.label])
     prof = OutcomeProfile(n_rows=len(df))
-    prof.label_first = _first_rows(ycodes, ytext, 0, rows=False)
+    one_score = isinstance(cfg.score, str)  # two classes expected: a third value's row is named
+    prof.label_first = {k: where(v) if one_score else 0 for k, v in
+                        _first_rows(ycodes, ytext, 0, rows=one_score, counts=prof.label_counts).items()}
     cache: dict[str, Any] = {"y": (ycodes, ytext)}
     if isinstance(cfg.score, dict):
         probs = _probabilities_if_fit(df, list(cfg.score.values()))
@@ -360,16 +373,13 @@ def fit_outcomes(profile: OutcomeProfile, cfg) -> OutcomeSpec:
         row, total = profile.sum_off
         raise AuditInputError(f"the probability columns ({', '.join(probs.values())}) sum to {total:.6g} at "
                               f"{_row(row)}; each row must sum to 1 within {PROB_SUM_TOLERANCE:g}", setting="score")
+    if len(classes) > 2 and isinstance(cfg.score, str):
+        raise AuditInputError(_two_expected(profile, cfg, classes), setting="label")
     if len(classes) > 2:
         if cfg.positive is not None:
             raise AuditInputError(f"label column {shown(label)} has {len(classes)} classes; a positive class applies "
                                   "to two classes only — leave positive out for a multi-class audit",
                                   setting="positive")
-        if cfg.score is not None and probs is None:
-            listed = ", ".join(shown(c, 20)[1:-1] for c in classes[:5]) + (", ..." if len(classes) > 5 else "")
-            raise AuditInputError(f"label column {shown(label)} has {len(classes)} distinct values ({listed}); a "
-                                  "multi-class audit needs one probability column per class: score={class: column} "
-                                  "(--score CLASS=COL,...)", setting="score")
         if len(classes) > MAX_CLASSES:
             raise AuditInputError(f"label column {shown(label)} has {len(classes)} classes; at most {MAX_CLASSES} "
                                   "are supported", setting="label")
@@ -394,6 +404,24 @@ def fit_outcomes(profile: OutcomeProfile, cfg) -> OutcomeSpec:
     return OutcomeSpec(label=label, pred=cfg.pred, score=cfg.score, classes=(neg, pos), positive=pos,
                        positive_inferred=inferred, prediction_source="column" if cfg.pred is not None else "threshold",
                        threshold=cfg.threshold)
+
+
+def _two_expected(profile: OutcomeProfile, cfg, classes: list[str]) -> str:
+    """The message for a label with three or more values when one probability column says the
+    audit is of two classes: the two expected values are the positive class (when stated) and
+    the most frequent; the rarest of the others is named with its first data row."""
+    counts = profile.label_counts
+    by_rows = sorted(classes, key=lambda c: (-counts.get(c, 0), profile.label_first.get(c, 0)))
+    pos = _match_class(cfg.positive, classes) if cfg.positive is not None else None
+    expected = ([pos] + [c for c in by_rows if c != pos][:1]) if pos is not None else by_rows[:2]
+    odd = min((c for c in classes if c not in expected),
+              key=lambda c: (counts.get(c, 0), profile.label_first.get(c, 0)))
+    n = counts.get(odd, 0)
+    listed = ", ".join(shown(c, 20)[1:-1] for c in classes[:5]) + (", ..." if len(classes) > 5 else "")
+    return (f"label column {shown(cfg.label)} has {len(classes)} distinct values ({listed}) where a two-class audit "
+            f"(one probability column, {shown(cfg.score)}) expects two: the rarest other value, {shown(odd, 20)} "
+            f"({n} row{'s' if n != 1 else ''}), is first at {_row(profile.label_first[odd])}; for a multi-class "
+            "audit give one probability column per class: score={class: column} (--score CLASS=COL,...)")
 
 
 def read_outcomes(df: pd.DataFrame, **settings: Any) -> Outcomes:
