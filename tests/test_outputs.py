@@ -109,3 +109,25 @@ def test_one_timestamp_per_run(fissure_main, table_csv, tmp_path):
     html = (out / "report.html").read_text()
     assert re.search(r"<p id='date-line'>Audit date \(UTC\): ([^<]*)</p>", html).group(1) == created
     assert json.loads((out / MARKER).read_text())["created"] == created
+
+
+@pytest.mark.parametrize("metric,words", [("error_rate", "rows"), ("recall", "actual positives")])
+def test_no_rest_reason_names_both_thresholds(fissure_main, tmp_path, metric, words):
+    # 990 of 1,000 rows in g=a: the rest of that slice has 10 rows (pandas count), under 30 (common
+    # practice default for min_support); the reason names both thresholds and what each counts.
+    import numpy as np
+    import pandas as pd
+
+    rng = np.random.default_rng(11)
+    n = 1000
+    df = pd.DataFrame({"y": rng.integers(0, 2, n), "p": rng.random(n), "g": ["a"] * 990 + ["b"] * 10})
+    df.to_csv(tmp_path / "t.csv", index=False)
+    r = fissure_main("audit", tmp_path / "t.csv", "--label", "y", "--score", "p", "--metric", metric, "--max-order",
+                     "1", "--no-report", "--quiet", "--out", tmp_path / "out")
+    assert r.returncode == 0, r.stderr
+    sl = pd.read_csv(tmp_path / "out" / "slices.csv", keep_default_na=False).set_index("slice")
+    assert int(sl.loc["g=a", "rest_n"]) == int((df["g"] != "a").sum()) == 10
+    assert sl.loc["g=a", "status"] == "no_rest"
+    assert sl.loc["g=a", "status_reason"] == (
+        f"the rest has fewer than 30 rows (minimum support) or fewer than 10 {words} in the metric's denominator "
+        "(minimum metric support)")

@@ -264,7 +264,8 @@ def summarize(tl: Tally, fitted: Fitted, cfg: AuditConfig, *, source: SourceInfo
     undefined = np.isnan(mb["metric_value"]) | np.isnan(mb["rest_value"]) | np.isnan(mb["p_value"])
     reason[undefined] = "metric undefined in the slice or the rest"
     status = np.where(undefined, "undefined", status)
-    reason[rest_small] = f"the rest has fewer than {ms} rows or {mms} {sup_title}"
+    reason[rest_small] = (f"the rest has fewer than {ms} rows (minimum support) or fewer than {mms} {sup_title} "
+                          "in the metric's denominator (minimum metric support)")
     status = np.where(rest_small, "no_rest", status)
     idx_m = np.flatnonzero(few_metric)
     reason[idx_m] = _counted(support[idx_m], f" {sup_title} < {mms}")
