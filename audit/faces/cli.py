@@ -83,13 +83,15 @@ def _pair(text: str) -> tuple[str, str]:
 
 
 def build_parser() -> argparse.ArgumentParser:
-    p = _Parser(prog="fissure", description="Audit a binary classifier slice by slice.")
+    p = _Parser(prog="fissure", description="Audit a classifier slice by slice.")
     p.add_argument("--version", action="version", version=f"fissure {__version__}")
     sub = p.add_subparsers(dest="command", required=True, parser_class=_Parser)
-    a = sub.add_parser("audit", help="audit a predictions table (CSV or Parquet)",
+    a = sub.add_parser("audit", help="audit a predictions table (CSV, TSV, Parquet or Excel)",
                        description="Score every attribute value and every pair of values, test each slice "
                                    "against the rest, correct for the number of tests and rank worst first.")
-    a.add_argument("data", help="predictions table: .csv or .parquet")
+    a.add_argument("data", help="predictions table: a .csv, .tsv or .txt file (also compressed: .gz, .bz2, .xz, "
+                                "or .zip holding one file), .parquet or .pq, .xlsx (first sheet), a folder of "
+                                "Parquet files, or a quoted glob of CSV files (\"scores-*.csv\")")
     g = a.add_argument_group("columns")
     g.add_argument("--label", help="true label column")
     g.add_argument("--pred", help="predicted label column")
@@ -143,8 +145,8 @@ def build_parser() -> argparse.ArgumentParser:
     o.add_argument("--encoding", metavar="NAME",
                    help="text encoding of a CSV file, e.g. cp1252 or latin-1 (default: UTF-8, strictly)")
     o.add_argument("--chunk-rows", type=int, metavar="N",
-                   help="read the file N rows at a time (memory bounded by the chunk, not the file); a "
-                        "folder of Parquet files or a glob of CSV files is always read in chunks")
+                   help="read a CSV/TSV or Parquet file N rows at a time (memory bounded by the chunk, not the "
+                        "file); a folder of Parquet files or a glob of CSV files is always read in chunks")
     o.add_argument("--engine", choices=["local", "dask"], default="local",
                    help="where to compute: in this process (local), or on a Dask cluster whose workers read their "
                         "own parts of the file and send back tallies, not rows (dask; pip install 'fissure[dask]')")
