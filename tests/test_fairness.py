@@ -220,8 +220,8 @@ def test_pair_groups_are_named_in_the_slice_notation_everywhere(credit, tmp_path
     credit.to_csv(data, index=False)
     out = tmp_path / "out"
     r = fissure_main("audit", data, "--label", "Status", "--score", "p_bad", "--positive", "bad", "--protected",
-                     "Marital,Home", "--favorable", "good", "--reference", "Marital & Home=Marital=married & Home=owner",
-                     "--top", "500", "--out", out)
+                     "Marital,Home", "--favorable", "good", "--top", "500", "--out", out,
+                     "--reference", "Marital & Home=Marital=married & Home=owner")
     assert r.returncode == 0, r.stderr
     fair = pd.read_csv(out / "fairness.csv", keep_default_na=False)
     pair = fair[fair["attribute"] == "Marital & Home"]
