@@ -138,22 +138,9 @@ def run(data: pd.DataFrame | str | os.PathLike, *, source: SourceInfo | None = N
         info = src.info
     note("intervals and tests", 0.9)
     cfg = _resolved(cfg, fitted)
-    res = _as_audited(summarize(tl, fitted, cfg, source=info, timings=timings, t0=t0))
+    res = summarize(tl, fitted, cfg, source=info, timings=timings, t0=t0)
     note("done", 1.0)
     return res
-
-
-def _as_audited(res: AuditResult) -> AuditResult:
-    """The result with its encoding as audited: an attribute the statistics left out (one that
-    restates the label or the prediction, found only once the slices are counted) moves from the
-    encoding's attributes to its skipped columns with the same reason, so ``summary.json``'s
-    encoding, reused with ``Encoding.from_dict``, slices exactly what was sliced."""
-    from dataclasses import replace
-
-    from .core.encoding import Encoding
-
-    enc = Encoding(tuple(res.attributes), dict(res.skipped))
-    return res if enc == res.encoding else replace(res, encoding=enc)
 
 
 def settings_from(settings: dict[str, Any]) -> AuditConfig:

@@ -13,7 +13,7 @@ from typing import Any, Sequence
 import numpy as np
 import pandas as pd
 
-from ..core.encoding import AttributeCoding
+from ..core.encoding import AttributeCoding, Encoding
 from ..core.stream import CALIBRATION_BINS, Fitted, SourceInfo, median_and_above
 from ..core.tally import Tally
 from ..settings import AuditConfig
@@ -346,7 +346,8 @@ def summarize(tl: Tally, fitted: Fitted, cfg: AuditConfig, *, source: SourceInfo
     return AuditResult(slices=df, overall=overall, config=cfg, source=source or SourceInfo(None, None, None),
                        n_rows=n_rows, classes=spec.classes, positive_inferred=spec.positive_inferred,
                        prediction_source=spec.prediction_source, attributes=kept_attrs, skipped=skipped,
-                       family_size=m_family, timings=timings, fairness=fairness, encoding=fitted.encoding,
+                       family_size=m_family, timings=timings, fairness=fairness,
+                       encoding=_as_audited(fitted.encoding, kept_attrs, skipped),
                        n_unlabelled=fitted.n_unlabelled, method=method, tally=tl)
 
 
@@ -398,3 +399,12 @@ def _roles(cols, counts, sums, rest, rsums, fam_row, pos_row, families, cards, c
 def _num(x) -> float | None:
     x = float(x)
     return None if np.isnan(x) else x
+
+
+def _as_audited(fitted: Encoding, attributes, skipped: dict) -> Encoding:
+    """The encoding as audited: an attribute the statistics left out (one that restates the label or
+    the prediction, found only once the slices are counted) moves from the fitted encoding's
+    attributes to its skipped columns with the same reason, so ``summary.json``'s encoding, reused
+    with ``Encoding.from_dict``, slices exactly what was sliced."""
+    enc = Encoding(tuple(attributes), dict(skipped))
+    return fitted if enc == fitted else enc
