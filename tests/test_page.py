@@ -823,3 +823,16 @@ def test_slice_verdict_says_why_a_worse_slice_is_not_flagged(demo_df):
     assert float(quiet["q_value"].iloc[0]) > res.config.alpha   # the engine's own q-value, as the line says
     # Under the form, the page says when its choices take effect.
     assert any("take effect when you press **Run the audit**" in c.value for c in at.caption)
+
+
+def test_a_reference_group_too_small_for_ratios_names_both_widgets(demo_df):
+    at = app().run()
+    w(at, "multiselect", "protected").set_value(["sex", "age_band"])
+    w(at, "selectbox", "favorable").set_value("0")
+    w(at, "number_input", "min_share").set_value(0.3)
+    w(at, "text_input", "reference").set_value("age_band=65+")
+    submit(at)
+    rows = int((demo_df["age_band"] == "65+").sum())   # the group's rows, counted with pandas
+    msg = " ".join(e.value for e in at.error)
+    assert f"has {rows:,} rows" in msg and "minimum group share 0\\.3" in msg
+    assert "**Reference groups**" in msg and "**Leave groups under this share out of ratios**" in msg

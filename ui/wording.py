@@ -75,6 +75,9 @@ def page_error(exc: AuditInputError) -> str:
     text = text[:1].upper() + text[1:]
     if setting == "pred" and "probability" in text and "prediction" in text:
         return (f"{md(text)}. Choose a column under **{WIDGETS['pred']}** or under **{WIDGETS['score']}**.")
+    if setting == "reference" and "minimum group share" in text:
+        return (f"{md(text)}. Change **{WIDGETS['reference']}** or **{WIDGETS['min_group_share']}** above (under "
+                "*Group fairness*).")
     widget = WIDGETS.get(setting or "")
     if widget:
         return f"{md(text)}. Change **{widget}** above."
