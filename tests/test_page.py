@@ -836,3 +836,20 @@ def test_a_reference_group_too_small_for_ratios_names_both_widgets(demo_df):
     msg = " ".join(e.value for e in at.error)
     assert f"has {rows:,} rows" in msg and "minimum group share 0\\.3" in msg
     assert "**Reference groups**" in msg and "**Leave groups under this share out of ratios**" in msg
+
+
+def test_reference_of_a_pair_follows_the_protected_order(demo_df):
+    # The engine names a pair in the order the protected attributes were chosen; the page checks the same.
+    at = app().run()
+    w(at, "multiselect", "protected").set_value(["sex", "age_band"])
+    w(at, "selectbox", "favorable").set_value("0")
+    w(at, "text_input", "reference").input("age_band & sex=35-44 & female")
+    submit(at)
+    msg = " ".join(e.value for e in at.error)
+    assert "not a protected attribute or a pair of them" in msg and "'sex & age\\_band'" in msg
+    w(at, "text_input", "reference").input("sex & age_band=female & 35-44")
+    submit(at)
+    assert not at.error
+    exp = audit.run(demo_df, label="delinquent", score="p_delinquent", protected=["sex", "age_band"], favorable="0",
+                    reference={"sex & age_band": "female & 35-44"})
+    assert exp.fairness.references["sex & age_band"] == "sex=female & age_band=35-44"

@@ -113,11 +113,11 @@ def check_reference(refs: dict[str, str], bad: list[str], protected: list[str]) 
         return f"**{widget}**: '{md(bad[0])}' is not of the form attribute=group (for example sex=female)."
     if refs and not protected:
         return f"**{widget}** were given but no protected attribute: choose them under **{WIDGETS['protected']}**."
-    known = set(protected) | {f"{a} & {b}" for a, b in _pairs(protected)} | {f"{b} & {a}" for a, b in _pairs(protected)}
+    known = list(protected) + [f"{a} & {b}" for a, b in _pairs(protected)]  # pairs in the order chosen, as the engine
     for k in refs:
         if k not in known:
-            return (f"**{widget}**: '{md(k)}' is not a protected attribute; choose one of "
-                    + ", ".join(f"'{md(p)}'" for p in protected) + ".")
+            return (f"**{widget}**: '{md(k)}' is not a protected attribute or a pair of them; choose one of "
+                    + ", ".join(f"'{md(p)}'" for p in known) + ".")
     return None
 
 
