@@ -434,6 +434,10 @@ def open_source(data, *, chunk_rows: int | None, encoding: str | None = None) ->
             return FrameSource(df, SourceInfo(info.name, info.sha256, info.n_bytes))
     if is_parquet:
         return ParquetSource(path, chunk_rows)
+    if low.endswith((".xlsx", ".xlsm", ".xls")):
+        raise AuditInputError(f"input file {os.path.basename(path)!r} is an Excel workbook, which cannot be read in "
+                              "chunks: leave out chunk_rows (--chunk-rows) to read it whole, or save it as CSV or "
+                              "Parquet", setting="chunk_rows")
     return CsvSource(path, chunk_rows, encoding=encoding)
 
 
