@@ -745,6 +745,21 @@ def test_output_folder_is_browsed_without_recomputing(tmp_path, monkeypatch):
     assert calls == []
 
 
+def test_output_folder_of_a_chunked_run_states_the_auc_bound(tmp_path, credit):
+    from audit.faces.export import save
+
+    src = tmp_path / "credit.csv"
+    credit.to_csv(src, index=False)
+    res = audit.run(str(src), label="Status", score="p_bad", positive="bad", chunk_rows=1000)
+    bound = res.method["roc_auc_error_bound"]
+    assert bound is not None and bound > 0
+    save(res, str(tmp_path / "run1"), report=False)
+    at = app().run()
+    at.text_input(key="run_folder").input(str(tmp_path / "run1")).run()
+    assert not at.exception and not at.error
+    assert any("ROC AUC is approximate" in c.value and f"within {bound:.2g}" in c.value for c in at.caption)
+
+
 def test_output_folder_path_is_guarded(tmp_path):
     from audit.faces.export import save
 

@@ -189,6 +189,10 @@ def show_finished_run(run: "folder_view.FinishedRun") -> None:
                f"Fissure {md((summ.get('tool') or {}).get('version', '?'))} for the file "
                f"**{md(res.source.name)}**. Nothing is recomputed: the settings are the run's own. Clear the folder "
                "above to go back to auditing an upload.")
+    how = summ.get("method") or {}
+    if how.get("roc_auc_error_bound") is not None:
+        st.caption(f"The table was read {md(how.get('reading', 'in chunks'))}: each slice's ROC AUC is approximate, "
+                   f"within {how['roc_auc_error_bound']:.2g} of the exact value (summary.json, method).")
     st.info(CAUTION)
     stc = res.status_counts()
     k1, k2, k3, k4, k5 = st.columns(5)
