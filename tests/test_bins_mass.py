@@ -108,9 +108,16 @@ def test_real_debt_column_of_the_credit_data():
     s = df["Debt"]
     assert 0.8 < (s == 0).mean() < 0.85  # the data: 82% of applicants have no debt recorded
     (a,), _ = encode_attributes(df, ["Debt"])
-    assert a.levels == ("(-inf, 1)", "[1, inf)", MISSING)  # 1 is the smallest positive debt
+    # The zeros below 1 (the smallest positive debt); the four bins left cut the positive debts at
+    # their own quartiles (numpy on the positive values: 600, 1500, 2693), rounded to two digits.
+    pos = s[s > 0]
+    q = np.quantile(pos, [0.25, 0.5, 0.75])
+    assert q.tolist() == [600.0, 1500.0, 2693.0]
+    assert a.levels == ("(-inf, 1)", "[1, 600)", "[600, 1500)", "[1500, 2700)", "[2700, inf)", MISSING)
     check_bins(s, a)
     assert pandas_count(s, "(-inf, 1)") == int((s == 0).sum())
+    shares = [pandas_count(s, lv) / len(pos) for lv in a.levels[1:-1]]
+    assert all(0.2 < x < 0.3 for x in shares)  # each near a quarter of the positive debts
 
 
 def test_in_memory_chunked_and_profiled_parts_fit_the_same_edges(tmp_path):
@@ -189,3 +196,18 @@ def test_a_run_states_why_a_one_bin_column_was_skipped():
     assert "v" not in [a.name for a in res.attributes]
     assert res.skipped["v"].startswith("one bin, (-inf, inf), holds every value")
     assert not res.slices["slice"].str.contains("v=").any()
+
+
+@pytest.mark.parametrize("bins", [3, 5, 8])
+def test_the_bins_a_mass_point_leaves_go_to_the_other_values(bins):
+    # 80% zeros and `bins` asked for: the zeros, then bins - 1 bins over the positive values cut at
+    # their own quantiles, each holding about an equal share of them (counted with pandas).
+    s = mostly_zero(n=5000)
+    (a,), _ = encode_attributes(s.to_frame(), ["debt"], n_bins=bins)
+    check_bins(s, a)
+    values = [lv for lv in a.levels if lv != MISSING]
+    assert len(values) == bins
+    pos = s[s > 0]
+    shares = [pandas_count(pos, lv) / len(pos) for lv in values if lv != bin_of(a, 0.0)]
+    assert len(shares) == bins - 1
+    assert all(abs(x - 1 / (bins - 1)) < 0.05 for x in shares)

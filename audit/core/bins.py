@@ -6,10 +6,11 @@ significant digits before any row is assigned, so a printed label is the rule it
 A *mass point* (one value held by so many rows that two quantile edges fall on it, or a
 quantile edge falls on the smallest value) gets a bin of its own: the quantile edges that
 collapsed onto it are replaced by one edge at the value and one at the next distinct value
-above it, each rounded only within the gap that keeps the sample's rows where they are.
-Without this, a column that is 80% zeros has every edge at 0 and ends as one bin
-``(-inf, inf)``, which only says "not missing". The collapse frees at least one edge for each
-edge added, so a column never gets more bins than asked for.
+above it, each rounded only within the gap that keeps the sample's rows where they are; the
+bins left over go to the other values, cut at their own quantiles. Without this, a column
+that is 80% zeros has every edge at 0 and ends as one bin ``(-inf, inf)``, which only says
+"not missing". The edges never number more than ``n_bins - 1``, so a column never gets more
+bins than asked for.
 """
 from __future__ import annotations
 
@@ -70,6 +71,13 @@ def quantile_edges(sample: np.ndarray, lo: float, hi: float, n_bins: int) -> np.
         if len(above):
             nxt = float(above.min())
             pinned[nxt] = (v, nxt)
+    if mass:
+        # The bins the mass points leave go to the other values, by their own quantiles: a column of
+        # 80% zeros asked for 5 bins gets the zeros and 4 quantile bins of the rest, not 2 bins.
+        rest = sample[~np.isin(sample, mass)]
+        k = n_bins - len(pinned)
+        free = [float(v) for v in np.quantile(rest, np.linspace(0.0, 1.0, k + 1)[1:-1])] if k >= 2 and len(rest) else []
+        free = [v for v in free if lo < v <= hi]
     # An edge inside a pinned gap would cut off an empty bin beside the mass point.
     free = [e for e in free if e not in pinned and not any(a < e <= b for a, b in pinned.values())]
     return _rounded_edges(np.asarray(free), pinned, lo, hi)
