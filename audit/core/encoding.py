@@ -425,7 +425,8 @@ def fit_encoding(profiles: Sequence[ColumnProfile], *, n_bins: int = 5, bin_edge
                 run = float(sample.max() - sample.min() + 1) <= 2.0 * distinct
                 if distinct > ID_MIN_DISTINCT and distinct >= ID_SHARE * p.sample_size and (run or _id_name(col)):
                     skipped[col] = (f"looks like a numeric identifier ({distinct} distinct whole numbers in "
-                                    f"{p.sample_size} rows); list it with categorical=[...] to slice it anyway")
+                                    f"{p.sample_size} rows); list it with categorical=[...] (--categorical) to slice it "
+                                    "anyway")
                     continue
             coding = _binned(p, None, n_bins)
             why = _one_bin(coding, given=False, n_bins=n_bins)
