@@ -204,8 +204,11 @@ def test_triples_counts_in_the_terminal_the_summary_and_the_report(triples_run):
     o3 = sl[sl["order"] == "3"]
     assert tri["listed"] == len(o3) and tri["tested"] == int((o3["status"] == "tested").sum())
     assert tri["flagged"] == int((o3["flagged"] == "true").sum()) and tri["pruned"] == tri["possible"] - tri["kept"]
+    empty = tri["kept"] - tri["listed"]  # kept triples that no row of slices.csv holds
+    assert tri["possible"] == tri["pruned"] + empty + len(o3)  # every triple considered is accounted for
     line = (f"triples: {tri['possible']:,} considered, {tri['pruned']:,} pruned (one of their pairs has fewer than "
-            f"30 rows), {tri['listed']:,} listed, {tri['tested']:,} tested, {tri['flagged']:,} flagged")
+            f"30 rows), " + (f"{empty:,} kept but held by no row, " if empty else "")
+            + f"{tri['listed']:,} listed, {tri['tested']:,} tested, {tri['flagged']:,} flagged")
     assert line in stdout.splitlines()
     raw = (work / "out" / "report.html").read_text(encoding="utf-8")
     find = _words(_section(raw, "findings", "fairness"))

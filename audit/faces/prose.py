@@ -365,9 +365,10 @@ def triples_words(result) -> str:
     tri = (result.method or {}).get("triples")
     if not tri:
         return ""
+    empty = tri["kept"] - tri["listed"]  # kept, but no row holds all three values
     return (f"{tri['possible']:,} considered, {tri['pruned']:,} pruned (one of their pairs has fewer than "
-            f"{tri['min_rows']} rows), {tri['listed']:,} listed, {tri['tested']:,} tested, "
-            f"{tri['flagged']:,} flagged")
+            f"{tri['min_rows']} rows), " + (f"{empty:,} kept but held by no row, " if empty else "")
+            + f"{tri['listed']:,} listed, {tri['tested']:,} tested, {tri['flagged']:,} flagged")
 
 
 def finding_groups(result) -> list[tuple[Any, Any]]:
