@@ -41,6 +41,8 @@ def test_confusion_grid_shows_counts_and_shares(res):
 
 def test_pair_heatmap_labels_support_and_small_cells(res):
     fig = charts.pair_heatmap(res, "region", "plan")
+    assert fig.data[0].colorbar.title.text == res.metric.title.split(" (")[0]  # the metric in words, as the axes
+    assert fig.layout.legend.yanchor == "top" and fig.layout.legend.y < -0.15  # legends sit under the x-axis title
     text = np.array(fig.data[0].text)
     cells = res.slices[(res.slices["attribute_1"] == "region") & (res.slices["attribute_2"] == "plan")]
     small = cells[cells["status"] == "below_support"]

@@ -77,7 +77,8 @@ def _layout(fig: go.Figure, *, title: str, width: int | None, height: int) -> go
         title={"text": title, "x": 0.0, "xanchor": "left", "font": {"size": 15}},
         template=_TEMPLATE, height=height, width=width, margin={"l": 10, "r": 20, "t": 60, "b": 40},
         font={"family": "DejaVu Sans, Arial, sans-serif", "size": 12, "color": PALETTE["ink"]},
-        legend={"orientation": "h", "y": -0.15, "x": 0},
+        # below the x-axis title, not over it: anchored by its top, under the axis's own margin
+        legend={"orientation": "h", "yanchor": "top", "y": -0.22, "x": 0},
     )
     return fig
 
@@ -171,7 +172,7 @@ def pair_heatmap(result, attr_a: str, attr_b: str, *, width: int | None = None) 
             cell_text[i][j] = f"{mark}{v:.3f}<br>n={n:,}" if v == v else f"undefined<br>n={n:,}"
     fig = _figure(go.Heatmap(
         z=z, x=_texts(lb), y=_texts(la), text=cell_text, texttemplate="%{text}", colorscale=HEAT_SCALE, xgap=2,
-        ygap=2, colorbar={"title": {"text": result.config.metric}}, hoverongaps=False,
+        ygap=2, colorbar={"title": {"text": _metric_title(result).split(" (")[0]}}, hoverongaps=False,
         hovertemplate=f"{text(attr_a)}=%{{y}}<br>{text(attr_b)}=%{{x}}<br>%{{text}}<extra></extra>"))
     fig.update_layout(plot_bgcolor=PALETTE["absent"])
     fig.update_xaxes(title=text(attr_b), type="category")
