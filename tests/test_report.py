@@ -345,3 +345,22 @@ def test_a_read_in_chunks_states_the_roc_auc_bound_in_summary_and_report(credit,
     raw = (tmp_path / "whole" / "report.html").read_text()
     method = _words(raw[raw.index("<section id='method'>"):raw.index("</section>", raw.index("<section id='method'>"))])
     assert "Reading the table in memory" in method and "bound" not in method
+
+
+def test_fairness_table_keeps_each_interval_on_one_line(demo_df):
+    # A pair group of a binned attribute: each printed interval sits in a no-break span (a line may
+    # break before it, never inside it), and the group names read exactly as in fairness.csv.
+    import audit
+    from audit.faces.report import build_html
+
+    res = audit.run(demo_df, label="delinquent", score="p_delinquent", protected=["sex", "tenure_years"],
+                    favorable="0")
+    raw = build_html(res, command=None)
+    fair = raw[raw.index("<section id='fairness'>"):raw.index("<section id='limits'>")]
+    assert ".tok { white-space: nowrap; }" in raw
+    plain = html.unescape(re.sub(r"<[^>]+>", "", fair))   # tags removed without adding spaces
+    pairs = [g for a, g in zip(res.fairness.groups["attribute"], res.fairness.groups["group"]) if " & " in a]
+    assert pairs and all(g in plain for g in pairs)
+    spans = re.findall(r"<span class='tok'>([^<]*)</span>", fair)
+    intervals = {m for g in pairs for m in re.findall(r"[\[(][^\[\]()]*, [^\[\]()]*[\])]", g)}
+    assert intervals and intervals <= {html.unescape(s) for s in spans}

@@ -46,7 +46,7 @@ th, td { border: 1px solid var(--rule); padding: 3px 7px; text-align: left; vert
 th { background: #eef2f7; } td.num { text-align: right; font-variant-numeric: tabular-nums; }
 .flag { color: var(--flag); font-weight: bold; } .muted { color: var(--muted); }
 .favour { color: var(--ink); font-style: italic; } .disadv { color: var(--flag); }
-td.reading { min-width: 16em; } td.num { white-space: nowrap; }
+td.reading { min-width: 14em; } td.num { white-space: nowrap; } .tok { white-space: nowrap; }
 .caution { border-left: 5px solid var(--flag); background: #fdf3ec; padding: .6em 1em; margin: 1em 0; }
 .gate-blocked { border: 2px solid var(--flag); padding: .5em 1em; } .gate-passed { border: 2px solid var(--ink);
      padding: .5em 1em; } .gate-none { border: 1px dashed var(--rule); padding: .5em 1em; }
@@ -99,6 +99,11 @@ def _table(header, rows, num_cols=(), cls: str = "", col_class=None) -> str:
         out.append("<tr>" + "".join(cells) + "</tr>")
     out.append("</tbody></table>")
     return "".join(out)
+
+
+def _unbroken(escaped: str) -> str:
+    """Escaped text with each interval (``[27, 33)``, ``(-inf, 27)``) kept on one line."""
+    return re.sub(r"[\[(][^\[\]()]*, [^\[\]()]*[\])]", lambda m: f"<span class='tok'>{m.group(0)}</span>", escaped)
 
 
 def _figure(fig, div_id: str, caption: str = "") -> str:
@@ -681,7 +686,7 @@ def _fairness_section(result, found, lvl: int) -> tuple[str, int]:
     for _, r in found.iterrows():
         cls = "disadv" if r["disadvantaged"] else "favour"
         by_group.setdefault((r["attribute"], r["group"]), []).append(
-            f"<span class='{cls}'>• {e(r['direction'])} — {e(r['reading'])}</span>")
+            f"<span class='{cls}'>• {_unbroken(e(r['direction']))} — {_unbroken(e(r['reading']))}</span>")
     header = ["attribute", "group", "n", f"selection rate (predicted {fav})", "impact ratio", "below 4/5", "TPR",
               "FPR", "PPV", "equalized-odds gap", "adj. p selection", "adj. p TPR", "adj. p FPR", "adj. p PPV",
               "flag and direction"]
@@ -697,7 +702,7 @@ def _fairness_section(result, found, lvl: int) -> tuple[str, int]:
             flag = "left out: " + e(r["exclusion_reason"])
         else:
             flag = "—"
-        rows.append([e(r["attribute"]), e(r["group"]) + (" (reference)" if r["is_reference"] else ""),
+        rows.append([e(r["attribute"]), _unbroken(e(r["group"])) + (" (reference)" if r["is_reference"] else ""),
                      f"{int(r['n']):,}", _f(r["selection_rate"]), _f(r["impact_ratio"], 3), below, _f(r["tpr"]),
                      _f(r["fpr"]), _f(r["ppv"]), _f(r["equalized_odds_gap"]), _p(r.get("selection_q")),
                      _p(r.get("tpr_q")), _p(r.get("fpr_q")), _p(r.get("ppv_q")), flag])
