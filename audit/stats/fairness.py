@@ -138,9 +138,9 @@ def assess(groups, fitted, cfg, *, scoring=None) -> FairnessResult:
         # A group of one attribute is its value; a group of a pair is named in the slice notation,
         # in the attribute's order ('Marital=married & Age=(-inf, 27)' under 'Marital & Age').
         levels = [c[0] for c in combos] if len(parts) == 1 else [pair_group_name(parts, c) for c in combos]
-        aliases = {} if len(parts) == 1 else {
-            alias: name for c, name in zip(combos, levels)
-            for alias in (" & ".join(c), pair_group_name(parts[::-1], c[::-1]))}
+        # A pair's chosen reference arrives as its two values (engine.run turns the slice notation,
+        # either order, into that form with plain_references, for the first pass's check).
+        aliases = {} if len(parts) == 1 else {" & ".join(c): name for c, name in zip(combos, levels)}
         k = len(levels)
         lo_, hi_ = groups.offsets[q], groups.offsets[q + 1]
         cells = groups.counts[lo_:hi_]
@@ -299,8 +299,7 @@ def group_slice_name(attribute: str, group: str) -> str:
 def _reference(cfg, label: str, df: pd.DataFrame, aliases: dict[str, str] | None = None) -> str:
     chosen = (cfg.reference or {}).get(label)
     if chosen is not None:
-        # A pair's reference may be written as its two values ('married & (-inf, 27)') or in the
-        # slice notation, in either attribute order.
+        # A pair's reference is written as its two values ('married & (-inf, 27)'): its group's name.
         chosen = (aliases or {}).get(chosen, chosen)
         if chosen not in set(df["group"]):
             raise AuditInputError(f"reference group {shown(chosen)} does not occur in protected attribute "
