@@ -54,6 +54,7 @@ NONE = "(none)"
 STATS_BOX = "Support, slices, test level, correction, intervals and bins"
 FAIR_BOX = "Group fairness (optional): protected attributes and the favourable outcome"
 CHOOSE = "(choose)"
+ORDERS = {1: "single attributes", 2: "single attributes and pairs", 3: "up to three attributes"}
 PROBS, PRED_COLUMN = "one probability column per class", "a predicted-label column"
 MULTI_METRICS = ["error_rate", "accuracy", "macro_f1", "log_loss", "brier"]
 LARGER = """The upload limit keeps this page responsive for everyone using it. For a larger table, run the same
@@ -89,6 +90,11 @@ def _tick(step: str, since: float) -> float:
 # ----------------------------------------------------------------------------- widget state
 def _h(*parts) -> str:
     return hashlib.blake2b(repr(parts).encode(), digest_size=5).hexdigest()
+
+
+def quoted(text) -> str:
+    """A user's value in single quotes, as Markdown text."""
+    return "'" + md(text) + "'"
 
 
 def remember(name: str, value):
@@ -169,14 +175,13 @@ def cli_command(settings: dict, file_name: str) -> str:
     return " ".join(parts)
 
 
-def show_ranked(result, where, *, key: str) -> None:
-    """The ranked list of tested slices (the engine's columns)."""
-    m = result.metric
+def show_ranked(frame: pd.DataFrame, metric, where) -> None:
+    """Tested slices, ranked (the engine's columns), with the metric named and numbers formatted."""
     PV = st.column_config.NumberColumn(format="%.2e")
     N4 = st.column_config.NumberColumn(format="%.4f")
-    where.dataframe(result.ranked()[RANKED_COLUMNS].rename(columns={"metric_value": m.name}), hide_index=True,
+    where.dataframe(frame[RANKED_COLUMNS].rename(columns={"metric_value": metric.name}), hide_index=True,
                     width="stretch", height=360,
-                    column_config={m.name: N4, "metric_low": N4, "metric_high": N4, "rest_value": N4, "diff": N4,
+                    column_config={metric.name: N4, "metric_low": N4, "metric_high": N4, "rest_value": N4, "diff": N4,
                                    "diff_low": N4, "diff_high": N4, "p_value": PV,
                                    "q_value": st.column_config.NumberColumn("adjusted p", format="%.2e")})
 
@@ -204,7 +209,7 @@ def show_finished_run(run: "folder_view.FinishedRun") -> None:
     st.header("Findings first")
     tab_f, tab_r = st.tabs(["Findings and their echoes", "Every tested slice, ranked"])
     findings_view.show(res, tab_f, key=_h(run.folder))
-    show_ranked(res, tab_r, key="run_ranked")
+    show_ranked(res.ranked(), res.metric, tab_r)
     if summ.get("fairness"):
         fav = (summ["fairness"] or {}).get("favorable_outcome")
         st.header("Group fairness")
@@ -290,7 +295,7 @@ if not multi:
     pred = None if pred == NONE else pred
     looks_pred = [c for c in intake.pred_like_columns(table, label) if c != pred]
     if looks_pred and pred is None:
-        st.caption(f"Column {', '.join(chr(39) + md(c) + chr(39) for c in looks_pred)} looks like a predicted label: choose it under "
+        st.caption(f"Column {', '.join(map(quoted, looks_pred))} looks like a predicted label: choose it under "
                    f"**{WIDGETS['pred']}** to audit those decisions rather than probability ≥ threshold.")
     used = (label, score, pred)
 else:
@@ -359,8 +364,7 @@ with st.form("settings"):
     min_metric = c9.number_input(WIDGETS["min_metric_support"], 1, 100000, 10, 5, key="min_metric",
                                  help="For recall, the actual positives; for precision, the predicted positives.")
     max_order = c10.selectbox(WIDGETS["max_order"], [2, 1, 3], index=0, key="max_order",
-                              format_func=lambda o: {1: "single attributes", 2: "single attributes and pairs",
-                                                     3: "up to three attributes"}[o])
+                              format_func=ORDERS.get)
     c11, c12, c13, c14 = more.columns(4)
     alpha = c11.number_input(WIDGETS["alpha"], 0.001, 0.5, 0.05, 0.01, format="%.3f", key="alpha")
     correction = c12.selectbox(WIDGETS["correction"], list(CORRECTIONS), index=0, key="correction",
@@ -400,7 +404,7 @@ with st.form("settings"):
 if multi and how == PROBS and len(score_map) < len(classes):
     missing = [k for k in classes if k not in score_map]
     st.error(f"Choose a column under **{WIDGETS['class_score']} {md(missing[0])}**"
-             + (f" (and for {', '.join(chr(39) + md(k) + chr(39) for k in missing[1:])})" if missing[1:] else "")
+             + (f" (and for {', '.join(map(quoted, missing[1:]))})" if missing[1:] else "")
              + f", or choose *{PRED_COLUMN}* under **{WIDGETS['how']}**: with {len(classes)} classes the audit needs "
                "one probability column per class.")
     st.stop()
@@ -495,11 +499,10 @@ k4.metric("Below support", f"{stc.get('below_support', 0):,}")
 k5.metric("Flagged", f"{stc.get('flagged', 0):,}", help="Slices that do worse than the rest of the rows, with "
           "adjusted p at or below the threshold. Slices that do better are never flagged.")
 cfg = result.config
-order_words = {1: "single attributes", 2: "single attributes and pairs", 3: "up to three attributes"}[cfg.max_order]
-st.caption(f"Audited with: {md(m.title)} ({md(m.name)}); {order_words}; at least {cfg.min_support:,} rows per slice "
-           f"and {cfg.min_metric_support:,} in the metric's denominator; flagged at adjusted p ≤ {cfg.alpha:g} ({md(CORRECTIONS[cfg.correction].title)}); "
-           f"{md(INTERVALS[cfg.interval].title)} intervals at {lvl}%; {cfg.bins} quantile bins per numeric attribute "
-           f"(*{STATS_BOX}* above).")
+st.caption(f"Audited with: {md(m.title)} ({md(m.name)}); {ORDERS[cfg.max_order]}; at least {cfg.min_support:,} "
+           f"rows per slice and {cfg.min_metric_support:,} in the metric's denominator; flagged at adjusted "
+           f"p ≤ {cfg.alpha:g} ({md(CORRECTIONS[cfg.correction].title)}); {md(INTERVALS[cfg.interval].title)} "
+           f"intervals at {lvl}%; {cfg.bins} quantile bins per numeric attribute (*{STATS_BOX}* above).")
 if triples_words(result):
     st.caption(f"Triples of values from three different attributes: {md(triples_words(result))}.")
 skipped = {**result.skipped}
@@ -564,11 +567,7 @@ with tab_ranked:
     st.caption(f"{len(view):,} of {len(ranked):,} tested slices, worst first by the cautious end of the {lvl}% "
                f"interval of (slice − rest) for {md(m.title)}. Flags cover only slices that do **worse** than the "
                "rest of the rows; a slice that does significantly better is listed but never flagged.")
-    PVAL = st.column_config.NumberColumn(format="%.2e")
-    st.dataframe(view[RANKED_COLUMNS].rename(columns={"metric_value": m.name}), hide_index=True, width="stretch",
-                 height=360, column_config={m.name: NUM4, "metric_low": NUM4, "metric_high": NUM4, "rest_value": NUM4,
-                                            "diff": NUM4, "diff_low": NUM4, "diff_high": NUM4, "p_value": PVAL,
-                                            "q_value": st.column_config.NumberColumn("adjusted p", format="%.2e")})
+    show_ranked(view, m, st)
     t = _tick("ranked table", t)
     if len(view):
         box = sections.chart_section(st, "Chart: the worst slices shown, with their intervals and the rest's value",
