@@ -253,10 +253,12 @@ def test_charts_wait_for_their_section(page, app_url, tmp_path):
     loaded = page.evaluate("performance.getEntriesByType('resource').map(r => r.name)")
     assert not [u for u in loaded if "PlotlyChart" in u]          # the chart library was not even fetched
     # Loading placeholders stand still (each pulse would be frames drawn for as long as the tab waits).
-    still = page.evaluate("""() => { const d = document.createElement('div'); d.setAttribute('data-testid', 'stSkeleton');
+    # The rule is a style-only st.html, which Streamlit puts in its event container; the tab draws that
+    # up to a second after the main content, so wait for it (measured 0.3-1.0 s after this section's text).
+    page.wait_for_function("""() => { const d = document.createElement('div'); d.setAttribute('data-testid', 'stSkeleton');
         d.style.animation = 'pulse 1s infinite';
-        document.body.appendChild(d); const a = getComputedStyle(d).animationName; d.remove(); return a; }""")
-    assert still == "none"
+        document.body.appendChild(d); const a = getComputedStyle(d).animationName; d.remove(); return a === 'none'; }""",
+                           timeout=30_000)
     section = page.get_by_text("Chart: each tested slice against the band of chance")
     section.scroll_into_view_if_needed()
     section.click()
