@@ -193,6 +193,19 @@ def test_method_section_states_how_findings_and_adjusted_intervals_are_made(pair
     assert f"here R = {r:,}, m = {m:,}: 1 − {r:,}·0.05/{m:,} = {1 - r * 0.05 / m:.2%}" in method
 
 
+def test_terminal_and_report_print_the_same_adjusted_level(pairs_run):
+    """One run, one level: 1 - R*alpha/m (Benjamini & Yekutieli 2005) to two decimals in every face."""
+    work, stdout = pairs_run
+    sl = _csv(work / "out" / "slices.csv")
+    tested = sl[sl["status"] == "tested"]
+    r, m = int((tested["q_value"].astype(float) <= 0.05).sum()), len(tested)
+    level = f"{1 - r * 0.05 / m:.2%}"
+    assert f"(slice − rest, {level} interval adjusted for the selection)" in _words(stdout)
+    findings = _words(_section((work / "out" / "report.html").read_text(encoding="utf-8"), "findings", "fairness"))
+    assert f"{level} adjusted interval" in findings
+    assert not re.search(r"\d\.\d% adjusted interval", findings)   # never a one-decimal rounding of it
+
+
 def test_triples_counts_in_the_terminal_the_summary_and_the_report(triples_run):
     work, stdout = triples_run
     summary = json.load(open(work / "out" / "summary.json"))

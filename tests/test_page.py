@@ -120,6 +120,11 @@ def test_demo_runs_and_table_equals_engine(demo_df):
     assert w(at, "multiselect", "attributes").value == [a.name for a in exp_res.attributes]
     labels = [b.label for b in at.get("download_button")]
     assert {"slices.csv", "summary.json", "report.html"} <= set(labels)
+    # The findings' selection-adjusted level, 1 - R*alpha/m (Benjamini & Yekutieli 2005, JASA 100:71-81),
+    # printed as the terminal and the report print it.
+    tested = exp_res.ranked()
+    r = int((tested["q_value"] <= 0.05).sum())
+    assert any(f"widened to {1 - r * 0.05 / len(tested):.2%} to allow" in x.value for x in at.markdown)
     # The first view draws no chart (the browser's heaviest work); the confusion matrices are tables
     # with the engine's counts, and each chart section, once opened, draws its chart.
     assert len(at.get("plotly_chart")) == 0

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import pandas as pd
 
-from audit.faces.prose import class_drivers, fmt_p, is_multiclass
+from audit.faces.prose import class_drivers, fmt_p, is_multiclass, level_pct, selection_level
 from ui.wording import fmt, md
 
 FINDING_COLUMNS = ["finding_rank", "slice", "n", "metric_value", "rest_value", "diff", "diff_low_adj",
@@ -18,15 +18,6 @@ FINDING_COLUMNS = ["finding_rank", "slice", "n", "metric_value", "rest_value", "
 ECHO_COLUMNS = ["flag_rank", "slice", "n", "metric_value", "rest_value", "diff", "q_value", "explained_by"]
 #: Findings shown one by one with their echoes; the rest are in the findings table and the ranked list.
 SHOWN = 25
-
-
-def adjusted_level(result) -> float | None:
-    lvl = ((result.method or {}).get("explanations") or {}).get("selection_level")
-    try:
-        lvl = float(lvl)
-    except (TypeError, ValueError):
-        return None
-    return None if lvl != lvl else lvl
 
 
 def findings_table(result) -> pd.DataFrame:
@@ -56,7 +47,7 @@ def show(result, st, *, key: str = "") -> None:
     f = result.findings()
     stc = result.status_counts()
     n_flagged = stc.get("flagged", 0)
-    lvl = adjusted_level(result)
+    lvl = selection_level(result)
     if not len(f):
         st.markdown(f"**No findings**: no slice does significantly worse than the rest of the rows on {md(m.title)} "
                     f"({stc.get('tested', 0):,} slices tested). Absence of a flag is not evidence of equal "
@@ -66,8 +57,8 @@ def show(result, st, *, key: str = "") -> None:
     st.markdown(f"**{len(f)} finding{'s' if len(f) != 1 else ''}** among {n_flagged:,} flagged slices; the other "
                 f"{n_echo:,} flagged slices are **echoes**: they are flagged only because they lie in or around a "
                 "finding, and are folded under it. Findings are ranked by the cautious end of their interval of "
-                "(slice − rest)" + (f", widened to {lvl:.2%} to allow for having picked them out of every tested "
-                                    "slice (selection-adjusted)" if lvl else "") + ".")
+                "(slice − rest)" + (f", widened to {level_pct(lvl)} to allow for having picked them out of every "
+                                    "tested slice (selection-adjusted)" if lvl else "") + ".")
     table = findings_table(result)
     name = m.name
     num = column_config.NumberColumn

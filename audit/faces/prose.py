@@ -195,6 +195,25 @@ def _multiclass_notes(result, m) -> dict[str, Any]:
     return notes
 
 
+def selection_level(result) -> float | None:
+    """The level of the selection-adjusted intervals (1 − R·alpha/m), or None when no slice was selected."""
+    lvl = ((result.method or {}).get("explanations") or {}).get("selection_level")
+    try:
+        lvl = float(lvl)
+    except (TypeError, ValueError):
+        return None
+    return None if lvl != lvl else lvl
+
+
+def level_pct(lvl: float) -> str:
+    """A selection-adjusted level as every face prints it (two decimals: 1 − 1·0.05/476 is 99.99%, not 100.0%).
+
+    >>> level_pct(0.98953), level_pct(0.9998949)
+    ('98.95%', '99.99%')
+    """
+    return f"{lvl:.2%}"
+
+
 def fmt_p(x) -> str:
     """A p-value or adjusted p-value to two significant digits (8e-38 stays 8e-38, never 0.0).
 
@@ -446,8 +465,8 @@ def _summary_tail(result, lines: list[str], top: int, gate) -> str:
         lines.append("skipped: " + "; ".join(f"{k} ({v})" for k, v in result.skipped.items()))
     groups = finding_groups(result)
     if groups:
-        lvl = (result.method or {}).get("explanations", {}).get("selection_level")
-        lvl_words = f"{lvl:.1%} interval adjusted for the selection" if lvl else "interval adjusted for the selection"
+        lvl = selection_level(result)
+        lvl_words = (level_pct(lvl) + " " if lvl else "") + "interval adjusted for the selection"
         lines.append(f"findings by {m.name}, worst first (slice − rest, {lvl_words}); each echo is folded under the "
                      f"finding that explains it:")
         for r, ech in groups[:top]:

@@ -15,7 +15,8 @@ import subprocess
 import tempfile
 
 from .prose import (CAUTION, DRIVERS_RULE, class_drivers, fairness_findings, finding_groups, finding_text, fmt_p,
-                    is_multiclass, limitations, method_notes, prediction_words, role_words, triples_words)
+                    is_multiclass, level_pct, limitations, method_notes, prediction_words, role_words,
+                    selection_level, triples_words)
 
 SECTIONS = [
     ("opening", "1. Summary for the reviewer"),
@@ -461,13 +462,9 @@ def _orders_words(max_order: int) -> str:
     return {1: "one at a time", 2: "and their pairs"}.get(max_order, "with their pairs and triples")
 
 
-def _selection_level(result):
-    return (result.method or {}).get("explanations", {}).get("selection_level")
-
-
 def _adj_words(result) -> str:
-    lvl = _selection_level(result)
-    return f"{lvl:.1%} adjusted interval" if lvl else "adjusted interval"
+    lvl = selection_level(result)
+    return f"{level_pct(lvl)} adjusted interval" if lvl else "adjusted interval"
 
 
 def _echo_names(ech, limit: int | None = None) -> str:
@@ -516,7 +513,7 @@ def _findings_method_rows(result, notes) -> list[list[str]]:
     here = ""
     if lvl and ex.get("selected") is not None:
         here = (f"; here R = {ex['selected']:,}, m = {result.family_size:,}: 1 − {ex['selected']:,}·"
-                f"{result.config.alpha:g}/{result.family_size:,} = {lvl:.2%}")
+                f"{result.config.alpha:g}/{result.family_size:,} = {level_pct(lvl)}")
     rows.append(["Intervals of flagged slices", e(fn["adjusted_intervals"] + here)])
     if fn.get("triples"):
         rows.append(["Slices of three attributes", e(fn["triples"])])
