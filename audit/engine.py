@@ -17,7 +17,6 @@ from .core.stream import Fitted, SourceInfo, fit, open_source, tally_source
 from .core.tally import Tally
 from .errors import AuditInputError
 from .settings import AuditConfig, make_config
-from .stats.methods import COUNT_WORDS as SUPPORT_TITLES  # noqa: F401  (words for support counts)
 from .stats.result import ALL, AuditResult  # noqa: F401  (re-exported)
 from .stats.summarize import summarize
 

@@ -155,9 +155,9 @@ def _title(key: str) -> str:
 
 
 def _support_words(token: str) -> str:
-    from ..engine import SUPPORT_TITLES
+    from ..stats.methods import COUNT_WORDS
 
-    return SUPPORT_TITLES.get(token, token.replace("_", " "))
+    return COUNT_WORDS.get(token, token.replace("_", " "))
 
 
 def _gate_html(gate) -> str:
