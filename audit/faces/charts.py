@@ -257,23 +257,33 @@ def selection_rates(fair_groups: pd.DataFrame, attribute: str, *, width: int | N
     excluded = g["excluded"].to_numpy(dtype=bool)
     below = g["below_four_fifths"].to_numpy(dtype=bool)
     colours = np.where(below, PALETTE["flag"], np.where(excluded, PALETTE["rest"], PALETTE["calm"]))
-    labels = [f"{text(grp)}{' (reference)' if ref else ''}{' (left out: small)' if ex else ''}"
-              for grp, ref, ex in zip(g["group"], g["is_reference"], excluded)]
+    # A pair group breaks after each " & ", so long names stand level under their bars.
+    labels = [f"{text(grp)}{' (reference)' if ref else ''}{' (left out: small)' if ex else ''}".replace(
+        " &amp; ", " &amp;<br>") for grp, ref, ex in zip(g["group"], g["is_reference"], excluded)]
     fig.add_trace(go.Bar(
         x=labels, y=g["selection_rate"], marker={"color": colours},
         error_y={"type": "data", "array": g["selection_rate_high"] - g["selection_rate"],
                  "arrayminus": g["selection_rate"] - g["selection_rate_low"], "color": PALETTE["ink"]},
-        text=[f"{v:.1%}" + (" ▼ below 4/5" if b else "") for v, b in zip(g["selection_rate"], below)],
-        textposition="inside", insidetextanchor="middle", textfont={"color": "white"},
+        text=[f"{v:.1%}" + ("<br>▼ below 4/5" if b else "") for v, b in zip(g["selection_rate"], below)],
+        textposition="inside", insidetextanchor="middle", textangle=0, textfont={"color": "white"},
         hovertemplate="%{x}<br>selection rate %{y:.3f}<extra></extra>", showlegend=False))
     ref = g[g["is_reference"]]
     if len(ref):
         r = float(ref["selection_rate"].iloc[0])
-        fig.add_hline(y=0.8 * r, line={"color": PALETTE["flag"], "dash": "dash"},
-                      annotation_text=f"four-fifths of reference ({0.8 * r:.1%})", annotation_position="top left")
+        line = {"color": PALETTE["flag"], "dash": "dash"}
+        fig.add_hline(y=0.8 * r, line=line)
+        # Named in a legend above the plot area, not written on the plot: a label beside the line
+        # sits over whichever bar is taller than the line, and one under the axis meets long
+        # group names.
+        fig.add_trace(go.Scatter(x=[None], y=[None], mode="lines", line=line, hoverinfo="skip",
+                                 name=f"four-fifths of reference ({0.8 * r:.1%})", showlegend=True))
     fig.update_yaxes(title="selection rate (favourable outcome)", tickformat=".0%", gridcolor=PALETTE["grid"])
     fig.update_xaxes(type="category")
-    return _layout(fig, title=f"Selection rate by {text(attribute)}", width=width, height=380)
+    fig = _layout(fig, title=f"Selection rate by {text(attribute)}", width=width, height=400)
+    return fig.update_layout(
+        title={"y": 1.0, "yref": "container", "yanchor": "top", "pad": {"t": 12}},
+        legend={"orientation": "h", "xanchor": "left", "x": 0, "yanchor": "bottom", "y": 1.0},
+        margin={"t": 78})
 
 
 def error_rate_balance(fair_groups: pd.DataFrame, attribute: str, *, width: int | None = None) -> go.Figure:

@@ -48,6 +48,15 @@ th { background: #eef2f7; } td.num { text-align: right; font-variant-numeric: ta
 .flag { color: var(--flag); font-weight: bold; } .muted { color: var(--muted); }
 .favour { color: var(--ink); font-style: italic; } .disadv { color: var(--flag); }
 td.reading { min-width: 14em; } td.num { white-space: nowrap; } .tok { white-space: nowrap; }
+/* The fairness table has fifteen columns: smaller type and padding keep it inside the text column
+   (screen, narrower windows, and the printed page, A4 or Letter). */
+table.fair { width: 100%; font-size: 11px; }
+table.fair th, table.fair td { padding: 2px 4px; } table.fair td.reading { min-width: 10em; width: 26%; }
+@media screen and (max-width: 980px) {
+  table.fair { font-size: 10px; } table.fair th, table.fair td { padding: 2px 3px; }
+  table.fair td.reading { min-width: 8em; }
+}
+@media screen and (max-width: 860px) { table.fair { font-size: 9px; } }
 .caution { border-left: 5px solid var(--flag); background: #fdf3ec; padding: .6em 1em; margin: 1em 0; }
 .gate-blocked { border: 2px solid var(--flag); padding: .5em 1em; } .gate-passed { border: 2px solid var(--ink);
      padding: .5em 1em; } .gate-none { border: 1px dashed var(--rule); padding: .5em 1em; }
@@ -63,6 +72,8 @@ details.fold[open] > summary { margin-bottom: .3em; } ol.findings > li { margin-
   body { max-width: none; margin: 0; font-size: 11px; }
   section { page-break-before: always; } section#opening { page-break-before: avoid; }
   .chart { width: 170mm; height: auto; } table { page-break-inside: auto; } tr { page-break-inside: avoid; }
+  table.fair { font-size: 8.5px; } table.fair th { font-size: 8px; }
+  table.fair th, table.fair td { padding: 2px 2.5px; } table.fair td.reading { min-width: 7em; }
   details.fold::details-content { content-visibility: visible; display: block; }
   details.fold > summary { list-style: none; font-weight: bold; }
 }
@@ -105,6 +116,14 @@ def _table(header, rows, num_cols=(), cls: str = "", col_class=None) -> str:
 def _unbroken(escaped: str) -> str:
     """Escaped text with each interval (``[27, 33)``, ``(-inf, 27)``) kept on one line."""
     return re.sub(r"[\[(][^\[\]()]*, [^\[\]()]*[\])]", lambda m: f"<span class='tok'>{m.group(0)}</span>", escaped)
+
+
+def _pair_breaks(escaped: str) -> str:
+    """Escaped group or attribute name (intervals already in no-break spans) that breaks a line only
+    after each ``&`` (the word before it is kept with it, so no line starts with ``&`` or holds it alone)
+    and, where the table is too narrow, between ``name=`` and an interval."""
+    glued = re.sub(r"(<span class='tok'>[^<]*</span>|[^\s<>]+) &amp; ", r"<span class='tok'>\1 &amp;</span> ", escaped)
+    return glued.replace("=<span class='tok'>", "=<wbr><span class='tok'>")
 
 
 def _figure(fig, div_id: str, caption: str = "") -> str:
@@ -699,11 +718,12 @@ def _fairness_section(result, found, lvl: int) -> tuple[str, int]:
             flag = "left out: " + e(r["exclusion_reason"])
         else:
             flag = "—"
-        rows.append([e(r["attribute"]), _unbroken(e(r["group"])) + (" (reference)" if r["is_reference"] else ""),
+        rows.append([_pair_breaks(e(r["attribute"])),
+                     _pair_breaks(_unbroken(e(r["group"]))) + (" (reference)" if r["is_reference"] else ""),
                      f"{int(r['n']):,}", _f(r["selection_rate"]), _f(r["impact_ratio"], 3), below, _f(r["tpr"]),
                      _f(r["fpr"]), _f(r["ppv"]), _f(r["equalized_odds_gap"]), _p(r.get("selection_q")),
                      _p(r.get("tpr_q")), _p(r.get("fpr_q")), _p(r.get("ppv_q")), flag])
-    parts.append(_table(header, rows, num_cols=(2, 3, 4, 6, 7, 8, 9, 10, 11, 12, 13), cls="wide",
+    parts.append(_table(header, rows, num_cols=(2, 3, 4, 6, 7, 8, 9, 10, 11, 12, 13), cls="wide fair",
                         col_class={14: "reading"}))
     if len(found):
         parts.append("<h3>Fairness findings</h3><ul>"
