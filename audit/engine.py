@@ -44,8 +44,10 @@ def run(data: pd.DataFrame | str | os.PathLike, *, source: SourceInfo | None = N
     threshold : float
         With ``score`` only, the prediction is ``score >= threshold`` (0.5).
     attributes : str or list of str, optional
-        Columns to slice by (default: every other column; identifier-like ones and columns that
-        restate the outcome are skipped with a reason).
+        Columns to slice by (default: every other column; identifier-like ones, columns that look
+        like a predicted label (``audit.core.encoding.looks_like_prediction``, the page's rule too)
+        and columns that restate the outcome are skipped with a reason). A protected attribute the
+        audit skips is refused (``AuditInputError``, setting ``protected``).
     categorical, numeric : str or list of str
         Numeric columns to treat as categories (codes), or to bin even with few values.
     bins, bin_edges

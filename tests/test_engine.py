@@ -184,9 +184,10 @@ def test_every_printed_slice_is_its_own_definition_on_real_mortgage_data():
     df["p_deny"] = LogisticRegression(max_iter=2000).fit(X, y).predict_proba(X)[:, 1]
     df["deny_pred"] = np.where(df["p_deny"] >= 0.3, "yes", "no")  # a predicted-label column left in the table
     res = audit.run(df, label="deny", score="p_deny", positive="yes", threshold=0.3, bins=5)
-    # The row number is a numeric identifier; the copied predicted label restates the outcome.
+    # The row number is a numeric identifier; the copied predicted label is left out of the default
+    # attributes (named like a prediction, values among the label's classes; it also restates the outcome).
     assert res.skipped["rownames"].startswith("looks like a numeric identifier")
-    assert res.skipped["deny_pred"].startswith("restates the prediction")
+    assert res.skipped["deny_pred"].startswith("looks like a predicted label")
     assert not res.slices["slice"].str.contains("rownames|deny_pred").any()
     lvr = next(a for a in res.attributes if a.name == "lvr")
     assert lvr.kind == "binned" and all("e+" not in lv and "e-" not in lv for lv in lvr.levels)

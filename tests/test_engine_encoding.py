@@ -46,7 +46,7 @@ def test_summary_encoding_is_what_was_audited(credit_preds, tmp_path, fissure_ma
     assert r.returncode == 0, r
     s = json.loads((out / "summary.json").read_text())
     skipped = {d["column"]: d["reason"] for d in s["columns"]["skipped"]}
-    assert skipped["pred_default"].startswith("restates the prediction")
+    assert skipped["pred_default"].startswith("looks like a predicted label")
     assert skipped["application_id"].startswith("looks like a numeric identifier")
     enc = s["encoding"]
     assert [a["name"] for a in enc["attributes"]] == s["columns"]["attributes"]

@@ -8,9 +8,9 @@ its profile and its digest are kept together in :data:`ui.memo.TABLES`, keyed on
 file's SHA-256, so one upload is parsed once however many times the page reruns.
 
 Guesses: the label from its name (and from the probability column's name, ``p_churn`` ↔
-``churned``) before its position; predicted-label columns are recognised and never
-preselected as attributes; attributes the engine would skip are not preselected and their
-reasons are listed.
+``churned``) before its position; predicted-label columns are recognised by the engine's rule
+and never preselected as attributes (nor sliced by an audit run without ``attributes``);
+attributes the engine would skip are not preselected and their reasons are listed.
 """
 from __future__ import annotations
 
@@ -212,10 +212,10 @@ def _names_match(col: str, stem: str) -> bool:
 
 
 def is_pred_like(name: str) -> bool:
-    words = set(_norm(name).split("_"))
-    n = _norm(name)
-    return bool(words & {"pred", "yhat", "prediction", "predicted", "decision"}) or n.startswith("pred") \
-        or n.endswith("_hat") or n in ("y_hat", "yhat")
+    """Named like a predicted label: the engine's rule (``audit.core.encoding.is_pred_like``)."""
+    from audit.core.encoding import is_pred_like as rule
+
+    return rule(name)
 
 
 def binary_columns(table: Table) -> list[str]:
@@ -226,6 +226,24 @@ def guess_score(table: Table, exclude: tuple[str, ...] = ()) -> str | None:
     cands = [c for c, info in table.columns.items() if info.probability and c not in exclude]
     named = [c for c in cands if any(w in _norm(c) for w in SCORE_WORDS) or _norm(c).startswith("p")]
     return (named or cands or [None])[0]
+
+
+def passed_over_scores(table: Table) -> dict[str, str]:
+    """Columns named like a probability that are not guessed as one, each with why: the first
+    value outside [0, 1] (or a missing one), with its data row as the engine would name it."""
+    out = {}
+    for c, info in table.columns.items():
+        n = _norm(c)
+        if info.probability or not info.numeric or not (any(w in n for w in SCORE_WORDS) or n.startswith("p_")):
+            continue
+        v = pd.to_numeric(table.df[c], errors="coerce").to_numpy(dtype=float)
+        bad = np.flatnonzero(~((v >= 0) & (v <= 1)))
+        if not len(bad):
+            continue
+        i = int(bad[0])
+        why = "a missing value" if np.isnan(v[i]) else f"value {v[i]:g}"
+        out[c] = f"{why} at data row {i + 1}, outside [0, 1]"
+    return out
 
 
 def guess_label(table: Table, score: str | None = None) -> str:
@@ -294,15 +312,32 @@ def guess_pred(table: Table, label: str, score: str | None) -> str | None:
 
 
 def pred_like_columns(table: Table, label: str) -> list[str]:
-    lab = set(table.columns[label].values) if label in table.columns else set()
-    most = max(2, len(lab))
+    """Columns that look like a predicted label of ``label``: the engine's one rule
+    (``audit.core.encoding.looks_like_prediction``), which also leaves them out of ``audit.run``'s
+    default attributes, so the page's preselection and a command-line audit without
+    ``--attributes`` slice by the same columns."""
+    from audit.core.encoding import looks_like_prediction
+
+    named = [c for c in table.columns if c != label and is_pred_like(c)]
+    if not named:
+        return []
+    classes = _distinct_texts(table, label) if label in table.columns else []
     out = []
-    for c, info in table.columns.items():
-        if c == label or info.distinct is None or info.distinct > most or not is_pred_like(c):
-            continue
-        if not lab or set(info.values) <= lab:
+    for c in named:
+        info = table.columns[c]
+        if info.distinct is not None and info.distinct > max(2, len(classes)):
+            continue  # more values than the label has classes (known without looking at them)
+        if looks_like_prediction(c, _distinct_texts(table, c), classes):
             out.append(c)
     return out
+
+
+def _distinct_texts(table: Table, c: str) -> list[str]:
+    """Every distinct non-missing value of column ``c`` as text (the profile's, when it lists them all)."""
+    info = table.columns[c]
+    if info.values and info.distinct is not None and len(info.values) == info.distinct:
+        return list(info.values)
+    return [_text(v) for v in table.df[c].dropna().unique()]
 
 
 def is_number_column(table: Table, c: str) -> bool:
@@ -318,8 +353,10 @@ def screen(table: Table, candidates: list[str], *, label: str | None = None, bin
     The decision is the engine's own: each column is profiled by
     ``audit.core.encoding.profile_column`` and the encoding fitted by ``fit_encoding`` with the
     page's settings, exactly as ``audit.run`` does in its first pass, so the page's preselection
-    and the audit cannot drift apart. The one rule of the page's own: a column that looks like a
-    predicted label is not preselected. Profiles are kept with the table (one per column).
+    and the audit cannot drift apart. A column that looks like a predicted label is not preselected:
+    the engine's rule too (``audit.core.encoding.looks_like_prediction``), which leaves such a column
+    out of the default attributes of an audit run without ``attributes``; the page words its reason
+    for the page. Profiles are kept with the table (one per column).
     """
     from audit.core.encoding import fit_encoding, profile_column
     from audit.errors import AuditInputError

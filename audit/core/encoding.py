@@ -502,6 +502,66 @@ def choose_columns(columns: Sequence[str], attributes: Iterable[str] | None, *,
     return sorted(cols, key=order.__getitem__)
 
 
+# ----------------------------------------------------------------------------- predicted-label columns
+#: Words that name a predicted label (``pred_deny``, ``model_decision``, ``y_hat``).
+PRED_NAME_WORDS = ("pred", "yhat", "prediction", "predicted", "decision")
+
+#: Why a column that looks like a predicted label is left out of the default attributes.
+PREDICTION_LIKE = ("looks like a predicted label: named like one, with values among the label's classes; give it as "
+                   "the prediction column (pred=..., --pred) to audit those decisions, or list it with "
+                   "attributes=[...] (--attributes) to slice by it anyway")
+
+
+def is_pred_like(name: str) -> bool:
+    """Whether a column is named like a predicted label: a word of :data:`PRED_NAME_WORDS`, a name
+    starting with ``pred`` or ending with ``_hat``."""
+    import re
+
+    n = re.sub(r"[^a-z0-9]+", "_", str(name).lower()).strip("_")
+    return bool(set(n.split("_")) & set(PRED_NAME_WORDS)) or n.startswith("pred") or n.endswith("_hat") \
+        or n in ("y_hat", "yhat")
+
+
+def _class_key(v: str) -> str:
+    """A value as a class is compared: ``1.0`` and ``True`` read ``1``, ``false`` reads ``0``."""
+    t = str(v)
+    num = None
+    try:
+        x = float(t)
+        num = str(int(x)) if x.is_integer() and abs(x) < 1e15 else None
+    except ValueError:
+        pass
+    return num if num is not None else {"true": "1", "false": "0"}.get(t.lower(), t)
+
+
+def looks_like_prediction(name: str, values: Iterable[str] | None, classes: Iterable[str]) -> bool:
+    """The one rule (engine and page) for a column that looks like a predicted label: named like
+    one (:func:`is_pred_like`), with at most as many distinct values as the label has classes (two
+    at least) and every value one of the label's classes (any values when the classes are not
+    known). ``values`` are the column's distinct non-missing values as text (None: too many to list)."""
+    if values is None or not is_pred_like(name):
+        return False
+    vals = {_class_key(v) for v in values}
+    known = {_class_key(c) for c in classes}
+    if not vals or len(vals) > max(2, len(known)):
+        return False
+    return not known or vals <= known
+
+
+def profile_values(p: ColumnProfile) -> list[str] | None:
+    """A profiled column's distinct non-missing values as text (None: more than a profile lists)."""
+    if p.kind == "text":
+        return None if p.counts is None else [t for t, c in p.counts.items() if c > 0]
+    return None if p.distinct is None else [_text_of(v) for v in p.distinct]
+
+
+def prediction_like(profiles: Sequence[ColumnProfile], classes: Iterable[str]) -> dict[str, str]:
+    """The profiled columns that look like a predicted label (:func:`looks_like_prediction`), each
+    with the reason it is left out when the attributes are not given explicitly."""
+    classes = list(classes)
+    return {p.name: PREDICTION_LIKE for p in profiles if looks_like_prediction(p.name, profile_values(p), classes)}
+
+
 @dataclass(frozen=True)
 class Attribute:
     """An attribute encoded for one table: its coding and the table's codes (convenience view)."""

@@ -21,7 +21,8 @@ import pandas as pd
 
 from ..errors import AuditInputError, shown
 from .auc import ExactAuc, hist_bins, score_histogram, slice_auc
-from .encoding import ID_MIN_DISTINCT, Encoding, choose_columns, fit_encoding, profile_column
+from .encoding import (ID_MIN_DISTINCT, AttributeCoding, Encoding, choose_columns, fit_encoding, prediction_like,
+                       profile_column)
 from .outcomes import (OutcomeSpec, check_columns, fit_outcomes, labelled_rows, need_columns, profile_outcomes)
 from .tally import (LOSS_SUMS, Tally, cell_codes, plan_families, plan_triples, row_losses, tally, tally_numpy,
                     tally_triples, use_compiled)
@@ -192,8 +193,7 @@ def fit_evidence(ev: Evidence, cfg) -> Fitted:
         raise AuditInputError("the table has no rows" if not n_unlabelled else "the table has no labelled rows")
     prof_out.n_unlabelled = n_unlabelled
     spec = fit_outcomes(prof_out, cfg)
-    enc = fit_encoding(profiles, n_bins=cfg.bins, bin_edges=cfg.bin_edges, max_levels=cfg.max_levels,
-                       categorical=cfg.categorical, numeric=cfg.numeric)
+    enc = _fit_attributes(profiles, cfg, spec)
     if not enc.attributes:
         why = "; ".join(f"{shown(k)[1:-1]}: {v}" for k, v in enc.skipped.items()) or "the table has no other columns"
         raise AuditInputError(f"no attribute column left to slice by ({why})", setting="attributes")
@@ -212,6 +212,26 @@ def fit_evidence(ev: Evidence, cfg) -> Fitted:
         fitted.score_hist = hist
         fitted.median_bins = _order_stat_bins(hist, prof_out.n_rows)
     return fitted
+
+
+def _fit_attributes(profiles: list, cfg, spec: OutcomeSpec) -> Encoding:
+    """The attribute encoding. With the attributes not given explicitly, a column that looks like a
+    predicted label (``encoding.prediction_like``, the rule the page's preselection uses too) is
+    left out with its reason: slicing by the model's own decisions audits the outcome, not a group."""
+    left_out = prediction_like(profiles, spec.classes) if cfg.attributes is None else {}
+    for col in left_out:
+        if col in cfg.bin_edges or col in cfg.categorical or col in cfg.numeric:
+            what = "bin edges were" if col in cfg.bin_edges else "a column type was"
+            raise AuditInputError(f"{what} given for {shown(col)}, which is not an audited attribute "
+                                  f"({left_out[col]})", setting="attributes")
+    kept = [p for p in profiles if p.name not in left_out]
+    enc = fit_encoding(kept, n_bins=cfg.bins, bin_edges=cfg.bin_edges, max_levels=cfg.max_levels,
+                       categorical=cfg.categorical, numeric=cfg.numeric)
+    if not left_out:
+        return enc
+    skipped = {p.name: left_out.get(p.name) or enc.skipped[p.name] for p in profiles
+               if p.name in left_out or p.name in enc.skipped}
+    return Encoding(enc.attributes, skipped)
 
 
 #: Metrics a multi-class audit can be audited on (besides ``NAME:CLASS`` per-class rates).
@@ -264,18 +284,34 @@ def _check_fairness_settings(cfg, spec: OutcomeSpec, enc: Encoding) -> None:
                               setting="favorable")
     by_name = {a.name: a for a in enc.attributes}
     labels = {p: by_name[p].levels for p in cfg.protected}
+    pairs: dict[str, tuple[AttributeCoding, AttributeCoding]] = {}
     prot = list(cfg.protected)
     for i in range(len(prot)):
         for j in range(i + 1, len(prot)):
             a, b = by_name[prot[i]], by_name[prot[j]]
             labels[f"{a.name} & {b.name}"] = tuple(f"{x} & {z}" for x in a.levels for z in b.levels)
+            pairs[f"{a.name} & {b.name}"] = (a, b)
     for attr, group in cfg.reference.items():
         if attr not in labels:
             raise AuditInputError(f"reference group given for {shown(attr)}, which is not a protected attribute or "
                                   f"a pair of them ({', '.join(labels)})", setting="reference")
         if group not in labels[attr]:
-            raise AuditInputError(f"reference group {shown(group)} does not occur in protected attribute {shown(attr)}",
+            named = _pair_group_name(group, *pairs[attr]) if attr in pairs else group
+            raise AuditInputError(f"reference group {shown(named)} does not occur in protected attribute {shown(attr)}",
                                   setting="reference")
+
+
+def _pair_group_name(group: str, a: AttributeCoding, b: AttributeCoding) -> str:
+    """A pair's group written as its two values (``'maybe & no'``, the form the reference check
+    reads) named in the slice notation fairness.csv and slices.csv use (``'afam=maybe & single=no'``).
+    A value may hold ' & ' itself: the split that names a level of either attribute is preferred."""
+    cuts = [i for i in range(len(group)) if group.startswith(" & ", i)]
+    if not cuts:
+        return group
+    splits = [(group[:i], group[i + 3:]) for i in cuts]
+    known = [s for s in splits if s[0] in a.levels or s[1] in b.levels]
+    x, z = (known or splits)[0]
+    return f"{a.name}={x} & {b.name}={z}"
 
 
 # ----------------------------------------------------------------------------- the tally pass

@@ -100,7 +100,9 @@ def build_parser() -> argparse.ArgumentParser:
                         "class: approve=p_approve,refer=p_refer,decline=p_decline")
     g.add_argument("--positive", help="the positive class (inferred for 0/1, false/true, no/yes)")
     g.add_argument("--threshold", type=float, help="with --score only: predict positive when score >= T (0.5)")
-    g.add_argument("--attributes", type=_csv_list, help="comma-separated attribute columns (default: all others)")
+    g.add_argument("--attributes", type=_csv_list,
+                   help="comma-separated attribute columns (default: all others except identifiers and columns that "
+                        "look like a predicted label, e.g. pred_deny)")
     g.add_argument("--categorical", type=_csv_list, metavar="COL,...",
                    help="numeric columns to slice as categories (branch, state or product codes)")
     g.add_argument("--numeric", type=_csv_list, metavar="COL,...",

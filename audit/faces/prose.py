@@ -587,8 +587,9 @@ def _findings_note(result) -> dict[str, Any]:
         "explanation_tests": ex.get("explanation_tests", 0),
         "findings": ex.get("findings", 0),
         "echoes": ex.get("echoes", 0),
-        "adjusted_intervals": ("intervals of the difference for the flagged slices at level 1 − R·alpha/m for the R "
-                               "slices selected by the correction among the m tested: false coverage-statement rate "
+        "adjusted_intervals": ("intervals of the difference for the flagged slices at level 1 − R·alpha/m, for the R "
+                               "slices selected by the correction (q ≤ alpha, better or worse than the rest; only the "
+                               "worse ones are flagged) among the m tested: false coverage-statement rate "
                                "intervals (Benjamini & Yekutieli 2005, JASA 100:71-81); findings are ranked by their "
                                "conservative end"),
         "adjusted_level": lvl,

@@ -16,6 +16,7 @@ import pandas as pd
 from ..core.encoding import AttributeCoding, Encoding
 from ..core.stream import CALIBRATION_BINS, Fitted, SourceInfo, median_and_above
 from ..core.tally import Tally
+from ..errors import AuditInputError, shown
 from ..settings import AuditConfig
 from .compare import cohens_d, cohens_h, two_proportion, welch_p
 from .correct import adjust
@@ -180,6 +181,18 @@ def restated_outcomes(tl: Tally, fitted: Fitted) -> dict[int, str]:
     return out
 
 
+def check_protected_kept(fitted: Fitted, restated: dict[int, str]) -> None:
+    """A protected attribute the audit leaves out is refused, as one skipped when the encoding was
+    fitted is (``stream.fit_evidence``): one that restates the label or the prediction is found only
+    once the slices are counted, and its fairness check would compare the outcome with itself
+    (every group's selection rate 0 or 1), flags that mean nothing. Raised before any output."""
+    for i in fitted.protected:
+        if i in restated:
+            name = fitted.encoding.attributes[i].name
+            raise AuditInputError(f"protected attribute {shown(name)} is not among the audited attributes "
+                                  f"({restated[i]})", setting="protected")
+
+
 def summarize(tl: Tally, fitted: Fitted, cfg: AuditConfig, *, source: SourceInfo | None = None,
               timings: dict[str, float] | None = None, t0: float | None = None) -> AuditResult:
     """The audit's result from a tally alone (see module docstring)."""
@@ -192,6 +205,7 @@ def summarize(tl: Tally, fitted: Fitted, cfg: AuditConfig, *, source: SourceInfo
     restated = restated_outcomes(tl, fitted)
     for i, why in restated.items():
         skipped[attrs[i].name] = why
+    check_protected_kept(fitted, restated)
     keep_fam = [q for q, f in enumerate(families) if not any(a in restated for a in f)]
     rows = np.concatenate([np.arange(tl.offsets[q], tl.offsets[q + 1]) for q in keep_fam])
     has_score = fitted.outcomes.has_probabilities
