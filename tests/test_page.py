@@ -13,6 +13,7 @@ from streamlit.testing.v1 import AppTest
 
 import audit
 from conftest import ROOT, random_table
+from ui.wording import md
 
 APP = os.path.join(ROOT, "ui", "app.py")
 RANKED = ["rank", "slice", "order", "n", "metric_value", "metric_low", "metric_high", "rest_value", "diff",
@@ -254,6 +255,21 @@ def _panel_n(at) -> int:
     return int(re.search(r"n = \*\*([\d,]+)\*\*", line).group(1).replace(",", ""))
 
 
+def test_a_slice_the_user_never_picked_follows_the_new_run(demo_df):
+    # The picker shows the page's guess, the top finding; after a run with other settings it shows
+    # the new run's top finding, not the old one's (found by a trial: an echo of the new run shown first).
+    at = app().run()
+    first = audit.run(demo_df, label="delinquent", score="p_delinquent")
+    assert w(at, "selectbox", "slice_pick").value == first.findings()["slice"].iloc[0]
+    w(at, "selectbox", "metric").set_value("recall")
+    submit(at)
+    exp = audit.run(demo_df, label="delinquent", score="p_delinquent", metric="recall")
+    assert exp.findings()["slice"].iloc[0] != first.findings()["slice"].iloc[0]   # the guess moved
+    pick = w(at, "selectbox", "slice_pick")
+    assert pick.value == exp.findings()["slice"].iloc[0]
+    assert _panel_n(at) == int(exp.slice(pick.value)["n"])
+
+
 def test_metric_change_keeps_the_slice_picker_and_its_panel_in_step(demo_df):
     at = app().run()
     pick = w(at, "selectbox", "slice_pick")
@@ -315,9 +331,28 @@ def test_errors_name_the_widget_to_change():
     at = upload(app().run(), "churn.csv", churn_table())
     w(at, "selectbox", "score").set_value("(none)").run()
     assert not at.exception
+    # The prediction column was the page's guess (none while a probability was given): without a
+    # probability it follows the new guess, the predicted-label column.
+    assert w(at, "selectbox", "pred").value == "churn_pred" and not at.error
+    w(at, "selectbox", "pred").set_value("(none)").run()
     msg = " ".join(e.value for e in at.error)
     assert "Predicted probability" in msg and "Predicted label column" in msg
     assert "--" not in msg and "=..." not in msg
+
+
+def test_a_probability_column_out_of_range_is_named_before_any_run():
+    # A trial found the page silently passing over such a column and slicing by it instead.
+    df = churn_table()
+    df.loc[41, "p_churn"] = 1.7          # data row 42, as the engine counts rows
+    at = upload(app().run(), "churn.csv", df)
+    assert not at.exception
+    said = [c.value for c in at.caption if "Named like a probability" in c.value]
+    assert len(said) == 1 and "p\\_churn" in said[0] and "1\\.7 at data row 42" in said[0]
+    assert w(at, "selectbox", "score").value == "(none)"
+    assert "p_churn" not in w(at, "multiselect", "attributes").value
+    # The engine names the same value and row when the column is chosen.
+    with pytest.raises(audit.AuditInputError, match="value 1.7 at data row 42"):
+        audit.run(df, label="churned", score="p_churn")
 
 
 def test_bad_files_show_a_message_not_an_exception():
@@ -843,6 +878,20 @@ def test_slice_verdict_says_why_a_worse_slice_is_not_flagged(demo_df):
     assert float(quiet["q_value"].iloc[0]) > res.config.alpha   # the engine's own q-value, as the line says
     # Under the form, the page says when its choices take effect.
     assert any("take effect when you press **Run the audit**" in c.value for c in at.caption)
+
+
+def test_a_slice_below_support_says_so_in_words_with_its_code():
+    df = churn_table()
+    at = upload(app().run(), "churn.csv", df)
+    w(at, "selectbox", "metric").set_value("recall")
+    submit(at)
+    t = audit.run(df, label="churned", score="p_churn", metric="recall").slices
+    small = t[t["status"] == "below_support"].iloc[0]
+    w(at, "selectbox", "slice_pick").set_value(small["slice"]).run()
+    line = next(m.value for m in at.markdown if m.value.startswith("Status: "))
+    # the words, then the code and the reason the slice's row in slices.csv carries
+    assert line.startswith("Status: **not tested: too little support** (`below_support` in slices.csv): "
+                           + md(small["status_reason"]))
 
 
 def test_a_reference_group_too_small_for_ratios_names_both_widgets(demo_df):

@@ -39,7 +39,8 @@ from audit.stats.measure import METRICS  # noqa: E402
 from audit.stats.methods import metric_for  # noqa: E402
 from ui import classes_view, fairness_view, findings_view, folder_view, intake, sections  # noqa: E402
 from ui.memo import REPORTS, RESULTS  # noqa: E402
-from ui.wording import WIDGETS, check_reference, fmt, md, page_error, page_words, parse_reference  # noqa: E402
+from ui.wording import (WIDGETS, check_reference, fmt, md, page_error, page_words, parse_reference,  # noqa: E402
+                        status_words)
 
 DEMO_PATH = os.path.join(ROOT, "demo", "predictions.csv")
 CAUTION = ("**Read flags as signals, not verdicts.** A flag means a slice's numbers differ from the rest of the rows "
@@ -108,10 +109,14 @@ def recall(name: str, default=None):
 
 def choose(where, label: str, options: list, guess, name: str, *deps, **kw):
     """A select box keyed on its options and what they depend on: when they change, a new widget
-    shows the previous choice if it is still offered, else the guess, on its first render."""
-    prev = recall(name)
-    default = prev if prev in options else (guess if guess in options else options[0])
+    shows the user's previous choice if it is still offered, else the guess, on its first render.
+    A value left at the page's own guess is no choice: it follows the new guess (after a new run
+    the slice picker shows the new top finding, not the old run's)."""
+    auto = guess if guess in options else options[0]
+    prev = None if recall(name + "/guessed") else recall(name)
+    default = prev if prev in options else auto
     value = where.selectbox(label, options, index=options.index(default), key=f"{name}-{_h(options, *deps)}", **kw)
+    remember(name + "/guessed", value == auto)
     return remember(name, value)
 
 
@@ -319,6 +324,11 @@ else:
         pred = choose(c3, WIDGETS["pred"], pred_opts, pred_guess or NONE, "pred_multi", sig, label)
         pred = None if pred == NONE else pred
     used = (label, pred, *score_map.values())
+passed_over = {c: why for c, why in intake.passed_over_scores(table).items() if c not in used}
+if passed_over:  # said before any run, as the command line would say it when the column is named
+    st.caption("Named like a probability but not offered as one: " + "; ".join(
+        f"{quoted(c)} has {md(why)}" for c, why in passed_over.items()) + ". Fix the file to audit it as a "
+        "probability; such a column is not preselected as an attribute.")
 
 candidates = [c for c in cols if c not in used]
 bins_now = int(st.session_state.get("bins", 5))
@@ -351,7 +361,8 @@ with st.form("settings"):
         metric_names += [f"{b}:{k}" for k in classes for b in ("recall", "precision", "f1")]
     metric = choose(c6, WIDGETS["metric"], metric_names, "error_rate", "metric", sig, multi, score is None,
                     bool(score_map), label, format_func=lambda k: f"{k} — {metric_for(k).title}")
-    attrs = choose_many(st, WIDGETS["attributes"], candidates, sliceable, "attributes", *roles)
+    attrs = choose_many(st, WIDGETS["attributes"], candidates, [c for c in sliceable if c not in passed_over],
+                        "attributes", *roles)
     if not_sliceable:
         st.caption("Not preselected: " + "; ".join(f"**{md(k)}**: {md(page_words(v))}" for k, v in not_sliceable.items())
                    + ". Choosing one anyway: the audit skips it and says why.")
@@ -590,7 +601,7 @@ else:
     s = result.slice(chosen)
     if multi:
         classes_view.slice_panel(result, chosen, st)
-        st.markdown(f"Status: **{md(s['status'])}** {md(s['status_reason'])}  ·  {s['share']:.1%} of all rows.")
+        st.markdown(f"{status_words(s['status'], s['status_reason'])}  ·  {s['share']:.1%} of all rows.")
     else:
         rest = result.rest_counts(chosen)
         st.markdown(f"**{md(chosen)}** · n = **{int(s['n']):,}** rows · errors {int(s['errors']):,} · "
@@ -599,7 +610,7 @@ else:
         sections.show_confusion(a, sections.confusion_table(s, result.classes), f"In the slice (n={int(s['n']):,})")
         sections.show_confusion(b, sections.confusion_table(rest, result.classes), f"In the rest (n={rest['n']:,})")
         comp_df = result.compare(chosen)
-        st.markdown(f"Status: **{md(s['status'])}** {md(s['status_reason'])}  ·  this slice holds "
+        st.markdown(f"{status_words(s['status'], s['status_reason'])}  ·  this slice holds "
                     f"**{comp_df.attrs['share_of_errors']:.1%}** of all errors and {s['share']:.1%} of all rows.")
         st.dataframe(comp_df, hide_index=True, width="stretch",
                      column_config={c: NUM4 for c in comp_df.columns[1:]})

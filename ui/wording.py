@@ -84,6 +84,22 @@ def page_error(exc: AuditInputError) -> str:
     return md(text) + "."
 
 
+#: A slice's status in words, beside the code slices.csv carries (so the row can be found there).
+STATUS_WORDS = {"tested": "tested against the rest", "below_support": "not tested: too little support",
+                "no_rest": "not tested: the rest is too small", "undefined": "not tested: the metric is undefined",
+                "whole_table": "the whole table"}
+
+
+def status_words(status: str, reason: str) -> str:
+    """``Status: words (code in slices.csv): reason`` as Markdown.
+
+    >>> status_words("below_support", "")
+    'Status: **not tested: too little support** (`below_support` in slices.csv)'
+    """
+    words = STATUS_WORDS[status] if status in STATUS_WORDS else md(status)
+    return f"Status: **{words}** (`{status}` in slices.csv)" + (f": {md(reason)}" if reason else "")
+
+
 def md(text) -> str:
     """Escape Markdown (and the HTML Streamlit would pass through) so user text shows as text."""
     out = str(text)
