@@ -249,6 +249,21 @@ def test_predicted_label_column_can_be_chosen():
     assert any("Prediction: the column **churn\\_pred**" in c.value for c in at.caption)
 
 
+def test_a_predicted_label_chosen_as_an_attribute_is_sliced_as_the_page_says():
+    df = churn_table()
+    at = upload(app().run(), "churn.csv", df)
+    note = next(c.value for c in at.caption if c.value.startswith("Not preselected: "))
+    assert "**churn\\_pred**" in note and "the audit slices a predicted-label column you choose" in note
+    box = w(at, "multiselect", "attributes")
+    attrs = box.value + ["churn_pred"]
+    box.set_value(attrs)
+    at.number_input(key="threshold").set_value(0.3)   # churn_pred is p_churn >= 0.5: at 0.5 it restates the prediction
+    submit(at)
+    exp = audit.run(df, label="churned", score="p_churn", attributes=attrs, threshold=0.3)
+    assert "churn_pred" not in exp.skipped and exp.slices["slice"].str.startswith("churn_pred=").any()
+    assert ranked_table(at)["slice"].tolist() == exp.ranked()["slice"].tolist()
+
+
 # ----------------------------------------------------------------------------- a changed metric and filters
 def _panel_n(at) -> int:
     line = next(m.value for m in at.markdown if " · n = **" in m.value)

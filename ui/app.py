@@ -364,8 +364,14 @@ with st.form("settings"):
     attrs = choose_many(st, WIDGETS["attributes"], candidates, [c for c in sliceable if c not in passed_over],
                         "attributes", *roles)
     if not_sliceable:
+        named = set(not_sliceable) & set(intake.pred_like_columns(table, label))
+        sliced = ("the audit slices a predicted-label column you choose (unless it restates the prediction "
+                  "audited, when it is skipped with the reason)")
+        anyway = "Choosing one anyway: " + (sliced + "." if named == set(not_sliceable) else
+                                            sliced + "; it skips the others and says why." if named else
+                                            "the audit skips it and says why.")
         st.caption("Not preselected: " + "; ".join(f"**{md(k)}**: {md(page_words(v))}" for k, v in not_sliceable.items())
-                   + ". Choosing one anyway: the audit skips it and says why.")
+                   + ". " + anyway)
     # Two boxes closed until opened: the browser draws their widgets only then, while the script
     # still reads every one of them, so their values hold whether the box is open or not.
     more = st.expander(STATS_BOX)
