@@ -23,6 +23,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from audit.core.encoding import is_pred_like  # the engine's rule: named like a predicted label
 from audit.core.read import SourceInfo, read_table
 from ui.memo import TABLES
 
@@ -211,20 +212,19 @@ def _names_match(col: str, stem: str) -> bool:
     return c == stem or (len(short) >= 3 and long_.startswith(short) and len(long_) - len(short) <= 3)
 
 
-def is_pred_like(name: str) -> bool:
-    """Named like a predicted label: the engine's rule (``audit.core.encoding.is_pred_like``)."""
-    from audit.core.encoding import is_pred_like as rule
-
-    return rule(name)
-
-
 def binary_columns(table: Table) -> list[str]:
     return [c for c, info in table.columns.items() if info.distinct == 2]
 
 
+def _score_named(c: str) -> bool:
+    """Whether a column's name holds a word of :data:`SCORE_WORDS` (``p_deny``, ``churn_prob``)."""
+    n = _norm(c)
+    return any(w in n for w in SCORE_WORDS)
+
+
 def guess_score(table: Table, exclude: tuple[str, ...] = ()) -> str | None:
     cands = [c for c, info in table.columns.items() if info.probability and c not in exclude]
-    named = [c for c in cands if any(w in _norm(c) for w in SCORE_WORDS) or _norm(c).startswith("p")]
+    named = [c for c in cands if _score_named(c) or _norm(c).startswith("p")]
     return (named or cands or [None])[0]
 
 
@@ -233,8 +233,7 @@ def passed_over_scores(table: Table) -> dict[str, str]:
     value outside [0, 1] (or a missing one), with its data row as the engine would name it."""
     out = {}
     for c, info in table.columns.items():
-        n = _norm(c)
-        if info.probability or not info.numeric or not (any(w in n for w in SCORE_WORDS) or n.startswith("p_")):
+        if info.probability or not info.numeric or not _score_named(c):
             continue
         v = pd.to_numeric(table.df[c], errors="coerce").to_numpy(dtype=float)
         bad = np.flatnonzero(~((v >= 0) & (v <= 1)))

@@ -25,6 +25,7 @@ the slice layout never changes silently.
 """
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass, field
 from typing import Any, Iterable, Mapping, Sequence
 
@@ -33,7 +34,7 @@ import pandas as pd
 
 from ..errors import AuditInputError, shown
 from .bins import bin_labels, plain, quantile_edges, round_edges  # noqa: F401  (public here too)
-from .values import natural_key
+from .values import natural_key, numeric_text
 
 MISSING = "(missing)"
 #: Numeric values used to fit quantile bin edges: the first this many non-missing values.
@@ -515,8 +516,6 @@ PREDICTION_LIKE = ("looks like a predicted label: named like one, with values am
 def is_pred_like(name: str) -> bool:
     """Whether a column is named like a predicted label: a word of :data:`PRED_NAME_WORDS`, a name
     starting with ``pred`` or ending with ``_hat``."""
-    import re
-
     n = re.sub(r"[^a-z0-9]+", "_", str(name).lower()).strip("_")
     return bool(set(n.split("_")) & set(PRED_NAME_WORDS)) or n.startswith("pred") or n.endswith("_hat") \
         or n in ("y_hat", "yhat")
@@ -525,13 +524,7 @@ def is_pred_like(name: str) -> bool:
 def _class_key(v: str) -> str:
     """A value as a class is compared: ``1.0`` and ``True`` read ``1``, ``false`` reads ``0``."""
     t = str(v)
-    num = None
-    try:
-        x = float(t)
-        num = str(int(x)) if x.is_integer() and abs(x) < 1e15 else None
-    except ValueError:
-        pass
-    return num if num is not None else {"true": "1", "false": "0"}.get(t.lower(), t)
+    return numeric_text(t) or {"true": "1", "false": "0"}.get(t.lower(), t)
 
 
 def looks_like_prediction(name: str, values: Iterable[str] | None, classes: Iterable[str]) -> bool:
